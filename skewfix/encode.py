@@ -1,0 +1,261 @@
+"""Write corrected planes to a clip that matches the source.
+
+`VideoSink` opens the output under a temporary name beside OUTPUT, encodes
+frames built straight from remapped planes (same pixel format and depth as
+the source where the encoder allows), copies the other streams packet for
+packet, carries colour tags and timestamps over, and renames the file into
+place only when everything has been written. `abort()` removes the partial
+file; OUTPUT is never left half written.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+
+from skewfix.decode import VideoInfo, plane_layout
+from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+
+CODECS = {"h264": "libx264", "hevc": "libx265", "prores": "prores_ks", "ffv1": "ffv1"}
+# source codec name -> encoder we use to match it
+_MATCHING_ENCODER = {
+    "h264": "libx264", "hevc": "libx265", "prores": "prores_ks", "ffv1": "ffv1",
+    "mpeg4": "mpeg4", "mjpeg": "mjpeg", "vp9": "libvpx-vp9", "vp8": "libvpx", "av1": "libaom-av1",
+    "png": "png", "rawvideo": "ffv1", "dnxhd": "dnxhd",
+}
+FALLBACK_ENCODER = "libx264"
+_PRORES_PROFILES = {"proxy": "0", "lt": "1", "standard": "2", "hq": "3", "4444": "4", "4444 xq": "5", "4444xq": "5"}
+DEFAULT_CRF = 16
+
+
+def encoder_available(name: str) -> bool:
+    import av
+
+    try:
+        av.codec.Codec(name, "w")
+        return True
+    except Exception:
+        return False
+
+
+def choose_encoder(info: VideoInfo, codec: str | None) -> tuple[str, str | None]:
+    """The encoder to use and, when it is not the source's, a note saying so."""
+    if codec:
+        key = codec.lower()
+        if key not in CODECS:
+            raise UsageProblem(f"unknown codec {codec!r}: choose one of {', '.join(CODECS)}")
+        return CODECS[key], None
+    wanted = _MATCHING_ENCODER.get(info.codec)
+    if wanted and encoder_available(wanted):
+        return wanted, None
+    return FALLBACK_ENCODER, (
+        f"no encoder for the source codec {info.codec!r} here; writing H.264 ({FALLBACK_ENCODER}) instead"
+    )
+
+
+def choose_pix_fmt(encoder: str, source_fmt: str, bit_depth: int) -> tuple[str, str | None]:
+    """Keep the source pixel format where the encoder takes it, else the nearest one."""
+    import av
+
+    supported = [f.name for f in (av.codec.Codec(encoder, "w").video_formats or [])]
+    if not supported or source_fmt in supported:
+        return source_fmt, None
+    chroma = "444" if "444" in source_fmt else "422" if "422" in source_fmt else "420"
+    deep = bit_depth > 8
+    ranked = [f for f in supported if chroma in f and (("10" in f or "12" in f or "16" in f) == deep)]
+    ranked += [f for f in supported if ("10" in f) == deep]
+    ranked += supported
+    choice = ranked[0]
+    return choice, f"{encoder} cannot write {source_fmt}; writing {choice}"
+
+
+def partial_path(output: Path) -> Path:
+    """A hidden temporary name beside OUTPUT that keeps its extension."""
+    fd, name = tempfile.mkstemp(prefix=f".{output.stem}.", suffix=f".partial{output.suffix}", dir=output.parent)
+    os.close(fd)
+    return Path(name)
+
+
+class VideoSink:
+    """An output clip being written; `finish()` renames it into place."""
+
+    def __init__(self, output: str | os.PathLike, info: VideoInfo, *, codec: str | None = None,
+                 crf: int | None = None, preset: str | None = None, source_container=None,
+                 threads: int | None = None):
+        import av
+
+        self.output = Path(output)
+        self.info = info
+        self.notes: list[str] = []
+        self.encoder, note = choose_encoder(info, codec)
+        if note:
+            self.notes.append(note)
+        self.pix_fmt, note = choose_pix_fmt(self.encoder, info.pix_fmt, info.bit_depth)
+        if note:
+            self.notes.append(note)
+        self.tmp = partial_path(self.output)
+        try:
+            self.container = av.open(str(self.tmp), "w")
+        except Exception as exc:
+            self._remove_tmp()
+            raise RuntimeProblem(f"{self.output}: cannot write here ({exc})") from None
+        try:
+            self._add_video(crf, preset, threads)
+            self._copy_map = {}
+            if source_container is not None:
+                self._add_copies(source_container)
+        except Exception:
+            self.abort()
+            raise
+        self._frames = 0
+
+    # -- setup ------------------------------------------------------------
+    def _add_video(self, crf, preset, threads):
+        info = self.info
+        rate = info.rate or Fraction(25)
+        try:
+            stream = self.container.add_stream(self.encoder, rate=rate)
+        except Exception as exc:
+            raise UsageProblem(f"{self.output}: the {self.output.suffix or 'output'} container cannot hold "
+                               f"{self.encoder} video ({exc}); pick another extension or --codec") from None
+        stream.width, stream.height = info.width, info.height
+        stream.pix_fmt = self.pix_fmt
+        stream.time_base = info.time_base
+        stream.codec_context.time_base = info.time_base
+        cc = stream.codec_context
+        for key, value in info.color.items():
+            if value is not None:
+                try:
+                    setattr(cc, key, value)
+                except Exception:
+                    pass
+        options = {}
+        if self.encoder in ("libx264", "libx265"):
+            options["crf"] = str(DEFAULT_CRF if crf is None else crf)
+            options["preset"] = preset or "medium"
+            if self.encoder == "libx265":
+                options["x265-params"] = "log-level=error"
+        elif self.encoder == "prores_ks":
+            prof = (info.profile or "").strip().lower() if info.codec == "prores" else ""
+            options["profile"] = _PRORES_PROFILES.get(prof, "3")
+        elif self.encoder == "ffv1":
+            options["level"] = "3"
+        elif crf is not None:
+            options["qscale"] = str(crf)
+        if preset and self.encoder not in ("libx264", "libx265"):
+            self.notes.append(f"--preset is ignored by {self.encoder}")
+        stream.options = options
+        if threads:
+            cc.thread_count = threads
+        if info.rotation:
+            self._set_rotation(stream, info.rotation)
+        self.stream = stream
+
+    def _set_rotation(self, stream, degrees):
+        # FFmpeg's mov/mp4 muxer honours the legacy "rotate" tag on the stream.
+        stream.metadata["rotate"] = str(degrees)
+
+    def _add_copies(self, source):
+        for s in source.streams:
+            if s.type == "video" and s.index == self._source_video_index(source):
+                continue
+            try:
+                self._copy_map[s.index] = self.container.add_stream_from_template(s)
+            except Exception as exc:
+                self.notes.append(f"stream {s.index} ({s.type}) could not be copied: {exc}")
+
+    @staticmethod
+    def _source_video_index(source):
+        return next(s.index for s in source.streams if s.type == "video")
+
+    # -- writing ----------------------------------------------------------
+    def write_planes(self, planes, pts, src_fmt: str, time_base=None):
+        import av
+
+        frame = av.VideoFrame(self.info.width, self.info.height, src_fmt)
+        fill_frame(frame, planes)
+        if src_fmt != self.pix_fmt:
+            frame = frame.reformat(format=self.pix_fmt)
+        self.write_frame(frame, pts)
+
+    def write_frame(self, frame, pts):
+        frame.pts = pts if pts is not None else self._frames
+        frame.time_base = self.info.time_base
+        for key, value in self.info.color.items():
+            if value is not None:
+                try:
+                    setattr(frame, key, value)
+                except Exception:
+                    pass
+        for packet in self.stream.encode(frame):
+            self.container.mux(packet)
+        self._frames += 1
+
+    def copy_packet(self, packet):
+        out = self._copy_map.get(packet.stream.index)
+        if out is None:
+            return
+        packet.stream = out
+        self.container.mux(packet)
+
+    # -- ending -----------------------------------------------------------
+    def finish(self) -> Path:
+        try:
+            for packet in self.stream.encode():
+                self.container.mux(packet)
+            self.container.close()
+        except Exception as exc:
+            self.abort()
+            raise RuntimeProblem(f"{self.output}: writing failed ({exc}); nothing was written") from None
+        os.replace(self.tmp, self.output)
+        return self.output
+
+    def abort(self) -> None:
+        try:
+            self.container.close()
+        except Exception:
+            pass
+        self._remove_tmp()
+
+    def _remove_tmp(self):
+        try:
+            os.unlink(self.tmp)
+        except FileNotFoundError:
+            pass
+
+    @property
+    def frames_written(self) -> int:
+        return self._frames
+
+
+def fill_frame(frame, planes) -> None:
+    """Copy numpy planes into an `av.VideoFrame`'s (padded) plane buffers."""
+    for arr, plane, (ch, nbytes, _b) in zip(planes, frame.planes, plane_layout(frame.format)):
+        dtype = np.uint16 if nbytes == 2 else np.uint8
+        dst = np.frombuffer(plane, dtype=dtype).reshape(plane.height, plane.line_size // nbytes)
+        dst[:, : plane.width * ch] = arr.reshape(plane.height, plane.width * ch)
+
+
+def check_output_path(input_path: str, output: str, force: bool) -> None:
+    """Refuse OUTPUT == INPUT (also via links or other spellings) and existing OUTPUT without --force."""
+    out = Path(output)
+    if "%" not in out.name:
+        try:
+            same = Path(input_path).exists() and out.exists() and os.path.samefile(input_path, out)
+        except OSError:
+            same = False
+        if same or os.path.realpath(input_path) == os.path.realpath(out):
+            raise UsageProblem(f"{output}: OUTPUT is the same file as INPUT; the input is never overwritten")
+        if out.exists() and not force:
+            raise UsageProblem(f"{output}: already exists (add --force to replace it)")
+        if out.is_dir():
+            raise UsageProblem(f"{output}: is a folder; give a file name")
+    parent = out.parent if str(out.parent) else Path(".")
+    if not parent.exists():
+        raise UsageProblem(f"{output}: folder {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise InputError(f"{output}: folder {parent} is not writable")

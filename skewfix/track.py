@@ -1,0 +1,121 @@
+"""Global-motion tracking between consecutive frames on a luma proxy.
+
+Each frame's luma is reduced to a proxy (longest side at most
+``proxy_size``). Between consecutive proxies we
+
+1. seed the global shift with phase correlation (Kuglin & Hines, 1975), so
+   that whip pans of well over 100 px per frame are caught;
+2. refine corner features (Shi & Tomasi, 1994) with pyramidal Lucas-Kanade
+   (Bouguet, 2000), starting from the seed;
+3. keep only tracks that survive a forward-backward check (Kalal et al., 2010).
+
+Coordinates returned are in full-resolution stored pixels. A pair with too few
+surviving tracks is "unmeasured" (blur, black frames); a pair whose luma
+histograms also disagree strongly is treated as a cut.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from skewfix.motion import PairObservations
+
+
+def luma_proxy(luma: np.ndarray, bit_depth: int, proxy_size: int) -> tuple[np.ndarray, float]:
+    """8-bit proxy of a luma plane and the scale factor (proxy px per full px)."""
+    h, w = luma.shape[:2]
+    scale = min(1.0, proxy_size / max(h, w))
+    img = luma
+    if img.dtype != np.uint8:
+        img = cv2.convertScaleAbs(img, alpha=255.0 / ((1 << bit_depth) - 1))
+    if scale < 1.0:
+        img = cv2.resize(img, (int(round(w * scale)), int(round(h * scale))), interpolation=cv2.INTER_AREA)
+    return img, scale
+
+
+@dataclass
+class TrackerSettings:
+    proxy_size: int = 960
+    max_features: int = 500
+    min_distance: int = 12
+    window: int = 21
+    levels: int = 3
+    fb_threshold: float = 0.5  # proxy px
+    min_tracks: int = 8
+
+
+class PairTracker:
+    """Feeds frames one at a time; returns the tracks to the previous frame."""
+
+    def __init__(self, settings: TrackerSettings | None = None):
+        self.settings = settings or TrackerSettings()
+        self._prev = None
+        self._prev_hist = None
+        self._scale = 1.0
+        self._full_shape = None
+        self.index = -1
+
+    def _to_full(self, pts: np.ndarray) -> np.ndarray:
+        """Proxy pixel centres to full-resolution pixel coordinates."""
+        if self._scale == 1.0:
+            return pts.astype(np.float64)
+        sx = self._full_shape[1] / self._proxy_shape[1]
+        sy = self._full_shape[0] / self._proxy_shape[0]
+        return np.stack([(pts[:, 0] + 0.5) * sx - 0.5, (pts[:, 1] + 0.5) * sy - 0.5], 1)
+
+    def push(self, luma: np.ndarray, bit_depth: int = 8) -> PairObservations | None:
+        """Add the next frame's luma; tracks from the previous frame to this one."""
+        s = self.settings
+        proxy, self._scale = luma_proxy(luma, bit_depth, s.proxy_size)
+        self._full_shape = luma.shape[:2]
+        self._proxy_shape = proxy.shape[:2]
+        hist = cv2.calcHist([proxy], [0], None, [32], [0, 256])
+        cv2.normalize(hist, hist, 1.0, 0.0, cv2.NORM_L1)
+        self.index += 1
+        prev, prev_hist = self._prev, self._prev_hist
+        self._prev, self._prev_hist = proxy, hist
+        if prev is None:
+            return None
+        k = self.index - 1
+        p0, p1 = self._track(prev, proxy)
+        empty = np.zeros((0, 2))
+        if len(p0) < s.min_tracks:
+            similarity = cv2.compareHist(prev_hist, hist, cv2.HISTCMP_CORREL)
+            bright = float(prev.mean()) > 12 and float(proxy.mean()) > 12
+            cut = bool(similarity < 0.5 and bright)
+            return PairObservations(k, empty, empty, cut=cut)
+        return PairObservations(k, self._to_full(p0), self._to_full(p1))
+
+    def _track(self, prev: np.ndarray, cur: np.ndarray):
+        s = self.settings
+        pts = cv2.goodFeaturesToTrack(prev, maxCorners=s.max_features, qualityLevel=0.01,
+                                      minDistance=s.min_distance, blockSize=7)
+        if pts is None or len(pts) < s.min_tracks:
+            return np.zeros((0, 2)), np.zeros((0, 2))
+        pts = pts.reshape(-1, 2).astype(np.float32)
+        seed = phase_shift(prev, cur)
+        guess = pts + np.float32(seed)
+        lk = dict(winSize=(s.window, s.window), maxLevel=s.levels,
+                  criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.01))
+        fwd, st1, _ = cv2.calcOpticalFlowPyrLK(prev, cur, pts, guess.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        back, st2, _ = cv2.calcOpticalFlowPyrLK(cur, prev, fwd, pts.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        h, w = cur.shape[:2]
+        fb = np.hypot(*(back - pts).T)
+        ok = (st1.ravel() == 1) & (st2.ravel() == 1) & (fb < s.fb_threshold)
+        ok &= (fwd[:, 0] >= 0) & (fwd[:, 0] <= w - 1) & (fwd[:, 1] >= 0) & (fwd[:, 1] <= h - 1)
+        return pts[ok], fwd[ok]
+
+
+def phase_shift(prev: np.ndarray, cur: np.ndarray) -> tuple[float, float]:
+    """Global shift (dx, dy) with ``cur(x + dx) ~ prev(x)``, by phase correlation.
+
+    Computed at half the proxy size with a Hann window (cv2.phaseCorrelate).
+    """
+    small_prev = cv2.pyrDown(prev).astype(np.float32)
+    small_cur = cv2.pyrDown(cur).astype(np.float32)
+    window = cv2.createHanningWindow(small_prev.shape[::-1], cv2.CV_32F)
+    (dx, dy), _ = cv2.phaseCorrelate(small_prev, small_cur, window)
+    return 2.0 * dx, 2.0 * dy

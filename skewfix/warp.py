@@ -1,0 +1,139 @@
+"""Warp maps from the motion model, and remapping of decoded planes.
+
+For an output pixel ``p`` of frame ``k`` (the global-shutter view at the
+reference instant ``t_ref``) the world point is ``q = X(t_ref) + S(t_ref)^-1 (p - c)``.
+The source row ``ys`` that saw it satisfies ``ys = y_image(q, t(k, ys))`` — a
+fixed point found in three iterations — and the source column follows. The
+inverse warp (adding a rolling shutter to a clean image) needs no iteration:
+row ``y`` of the output is read at ``t(k, y)``.
+
+Maps are computed on a coarse grid as displacements (smooth, small), then
+upsampled bilinearly and added to the identity; ``cv2.remap`` applies them to
+each plane at its own size and bit depth (chroma with the map scaled), so no
+colour conversion happens.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from skewfix.motion import MotionModel
+from skewfix.rowclock import RowClock
+
+BORDERS = ("edge", "black", "crop")
+GRID_STEP = 16
+
+
+@dataclass
+class WarpMap:
+    """A displacement field on a coarse grid for one frame.
+
+    ``dx``/``dy`` hold ``source - target`` at the coarse sample positions
+    ``(i + 0.5) * W / gw - 0.5`` (cell centres, as ``cv2.resize`` expects).
+    """
+
+    dx: np.ndarray
+    dy: np.ndarray
+    width: int
+    height: int
+
+    def is_identity(self) -> bool:
+        return float(np.max(np.abs(self.dx))) < 1e-6 and float(np.max(np.abs(self.dy))) < 1e-6
+
+    def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
+        """Absolute source coordinates (map_x, map_y) for a plane of the given size.
+
+        ``subsample`` is the plane's (horizontal, vertical) subsampling factor.
+        """
+        width = width or self.width
+        height = height or self.height
+        fx, fy = subsample
+        dx = cv2.resize(self.dx, (width, height), interpolation=cv2.INTER_LINEAR)
+        dy = cv2.resize(self.dy, (width, height), interpolation=cv2.INTER_LINEAR)
+        if fx != 1:
+            dx *= 1.0 / fx
+        if fy != 1:
+            dy *= 1.0 / fy
+        dx += np.arange(width, dtype=np.float32)[None, :]
+        dy += np.arange(height, dtype=np.float32)[:, None]
+        return dx, dy
+
+
+def coarse_grid(width: int, height: int, step: int = GRID_STEP):
+    gw = max(2, int(np.ceil(width / step)))
+    gh = max(2, int(np.ceil(height / step)))
+    xs = (np.arange(gw) + 0.5) * width / gw - 0.5
+    ys = (np.arange(gh) + 0.5) * height / gh - 0.5
+    return np.meshgrid(xs, ys)
+
+
+def _zoom_about_centre(px, py, width, height, zoom):
+    cx, cy = (width - 1) / 2.0, (height - 1) / 2.0
+    return cx + (px - cx) / zoom, cy + (py - cy) / zoom
+
+
+def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
+                   zoom: float = 1.0, step: int = GRID_STEP, iterations: int = 4) -> WarpMap:
+    """Map that turns rolling-shutter frame ``k`` into the global-shutter view at its reference row."""
+    w, h = model.width, model.height
+    gx, gy = coarse_grid(w, h, step)
+    px, py = _zoom_about_centre(gx, gy, w, h, zoom) if zoom != 1.0 else (gx, gy)
+    seg = model.segment_for(k)
+    t_ref = float(clock.reference_time(k, reference_line))
+    qx, qy = model.world_from_image(seg, np.full(px.shape, t_ref), px, py)
+    ys = py.copy()
+    for _ in range(iterations):
+        ts = clock.row_time(k, np.clip(ys, 0, h - 1))
+        xs, ys = model.image_from_world(seg, ts, qx, qy)
+    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h)
+
+
+def reskew_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
+               step: int = GRID_STEP) -> WarpMap:
+    """Map that puts the rolling shutter back: samples a clean frame at ``t_ref``."""
+    w, h = model.width, model.height
+    gx, gy = coarse_grid(w, h, step)
+    seg = model.segment_for(k)
+    t_ref = float(clock.reference_time(k, reference_line))
+    t_row = clock.row_time(k, gy)
+    qx, qy = model.world_from_image(seg, t_row, gx, gy)
+    xs, ys = model.image_from_world(seg, np.full(gx.shape, t_ref), qx, qy)
+    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h)
+
+
+def crop_zoom(maps, width: int, height: int, margin: float = 0.5) -> float:
+    """Smallest zoom about the centre that keeps every frame's source inside the frame.
+
+    ``maps`` yields `WarpMap`s computed at zoom 1; the border of the zoomed
+    output is checked against the source bounds by bisection.
+    """
+    zoom_needed = 1.0
+    cx, cy = (width - 1) / 2.0, (height - 1) / 2.0
+    for wm in maps:
+        mx, my = wm.full()
+        # how far, as a fraction of the half-size, each pixel's source may reach
+        inside = ((mx >= -margin) & (mx <= width - 1 + margin) & (my >= -margin) & (my <= height - 1 + margin))
+        if inside.all():
+            continue
+        # largest centred box (same aspect) whose pixels all map inside
+        yy, xx = np.nonzero(~inside)
+        r = np.maximum(np.abs(xx - cx) / max(cx, 1), np.abs(yy - cy) / max(cy, 1))
+        rmin = float(r.min())
+        zoom_needed = max(zoom_needed, 1.0 / max(rmin * 0.995, 1e-3))
+    return zoom_needed
+
+
+def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border: str, fill) -> np.ndarray:
+    """Resample one plane (any of uint8/uint16/float32, 1-4 channels) at its own depth."""
+    mode = cv2.BORDER_CONSTANT if border == "black" else cv2.BORDER_REPLICATE
+    return cv2.remap(plane, map_x, map_y, cv2.INTER_CUBIC if plane.dtype != np.float32 else cv2.INTER_LINEAR,
+                     borderMode=mode, borderValue=fill)
+
+
+def outside_matte(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
+    """True where an output pixel has no source pixel (filled by the border policy)."""
+    h, w = map_x.shape
+    return (map_x < -0.5) | (map_x > w - 0.5) | (map_y < -0.5) | (map_y > h - 0.5)
