@@ -124,7 +124,8 @@ class VideoSink:
                                f"{self.encoder} video ({exc}); pick another extension or --codec") from None
         stream.width, stream.height = info.width, info.height
         stream.pix_fmt = self.pix_fmt
-        stream.time_base = info.time_base
+        # The encoder counts in the source's time base so pts pass through
+        # unchanged; the muxer picks its own stream time base and rescales.
         stream.codec_context.time_base = info.time_base
         cc = stream.codec_context
         for key, value in info.color.items():

@@ -83,7 +83,7 @@ def write_rgb_clip(
                 vs = out.add_stream(codec, rate=rate)
                 vs.width, vs.height = rgb.shape[1], rgb.shape[0]
                 vs.pix_fmt = pix_fmt
-                vs.time_base = Fraction(1) / rate
+                vs.codec_context.time_base = Fraction(1) / rate
                 opts = dict(options or {})
                 if codec in ("libx264", "libx265"):
                     opts.setdefault("crf", str(crf))
@@ -94,7 +94,7 @@ def write_rgb_clip(
             fmt = "rgb48le" if rgb.dtype == np.uint16 else "rgb24"
             frame = av.VideoFrame.from_ndarray(rgb, format=fmt)
             frame.pts = i
-            frame.time_base = vs.time_base
+            frame.time_base = vs.codec_context.time_base
             for packet in vs.encode(frame):
                 out.mux(packet)
         for packet in vs.encode():

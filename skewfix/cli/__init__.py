@@ -1,0 +1,95 @@
+"""The `skewfix` command line: a thin typer layer over the pipeline modules.
+
+Every command lives in its own module here and registers itself on `app`.
+`main()` turns every `SkewfixError` and every usage mistake into one line on
+stderr and a non-zero exit status (1 for input and runtime problems, 2 for
+usage), with no traceback unless ``--debug`` or ``SKEWFIX_DEBUG=1``.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import sys
+
+import typer
+
+from skewfix.errors import SkewfixError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    help="Measure and remove rolling-shutter skew in footage.",
+)
+
+_STATE = {"debug": False}
+
+
+@app.callback()
+def _root(debug: bool = typer.Option(False, "--debug", help="Show full tracebacks on errors.")):
+    """Measure and remove rolling-shutter skew in footage."""
+    _STATE["debug"] = debug or os.environ.get("SKEWFIX_DEBUG") == "1"
+
+
+def debug_enabled() -> bool:
+    return _STATE["debug"] or os.environ.get("SKEWFIX_DEBUG") == "1"
+
+
+def fail(message: str, code: int = 1) -> None:
+    typer.echo(f"skewfix: {message}", err=True)
+    raise SystemExit(code)
+
+
+def _on_terminate(signum, frame):  # SIGTERM behaves like Ctrl-C: partial output removed
+    raise KeyboardInterrupt
+
+
+def _register_commands():
+    from skewfix.cli import fix as _fix  # noqa: F401
+    from skewfix.cli import demo as _demo  # noqa: F401
+    for name in ("measure", "plates", "batch", "cameras"):
+        try:
+            __import__(f"skewfix.cli.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name != f"skewfix.cli.{name}":
+                raise
+
+
+def main(argv: list[str] | None = None) -> int:
+    import click
+
+    _register_commands()
+    signal.signal(signal.SIGTERM, _on_terminate)
+    argv = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in argv or os.environ.get("SKEWFIX_DEBUG") == "1"
+    try:
+        app(args=argv, prog_name="skewfix", standalone_mode=False)
+    except SkewfixError as exc:
+        if debug:
+            raise
+        typer.echo(f"skewfix: {exc}", err=True)
+        return exc.exit_code
+    except click.exceptions.NoArgsIsHelpError:
+        return 0
+    except click.UsageError as exc:
+        if debug:
+            raise
+        hint = f" (see 'skewfix {exc.ctx.info_name if exc.ctx and exc.ctx.parent else ''} --help')".replace("  ", " ")
+        typer.echo(f"skewfix: {exc.format_message()}{hint}", err=True)
+        return 2
+    except click.exceptions.Abort:
+        typer.echo("skewfix: stopped; nothing was written", err=True)
+        return 130
+    except KeyboardInterrupt:
+        typer.echo("skewfix: stopped; nothing was written", err=True)
+        return 130
+    except SystemExit as exc:
+        return int(exc.code or 0) if not isinstance(exc.code, str) else 1
+    except Exception as exc:  # last resort: still one line, never a traceback
+        if debug:
+            raise
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+        typer.echo(f"skewfix: unexpected {type(exc).__name__}: {first} (run with --debug for details)", err=True)
+        return 1
+    return 0

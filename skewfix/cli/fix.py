@@ -1,0 +1,104 @@
+"""`skewfix fix`: remove the rolling shutter from a clip or plate."""
+
+from __future__ import annotations
+
+import re
+from fractions import Fraction
+from typing import Optional
+
+import typer
+
+from skewfix.cli import app
+from skewfix.cli.progress import TerminalProgress
+from skewfix.errors import UsageProblem
+from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_duration
+from skewfix.warp import BORDERS
+
+_NAME = re.compile(r"^[A-Za-z][\w.\-]*$")
+
+
+def parse_rate(text: str | None) -> Fraction | None:
+    """``25``, ``23.976``, ``24000/1001`` -> an exact Fraction (23.976 -> 24000/1001)."""
+    if text is None:
+        return None
+    try:
+        if "/" in text:
+            num, den = text.split("/", 1)
+            rate = Fraction(int(num), int(den))
+        else:
+            rate = Fraction(text).limit_denominator(1001)
+    except (ValueError, ZeroDivisionError):
+        raise UsageProblem(f"not a frame rate: {text!r} (use e.g. 25, 23.976 or 24000/1001)") from None
+    if rate <= 0:
+        raise UsageProblem(f"frame rate must be positive: {text!r}")
+    return rate
+
+
+def choice(value: str, allowed, option: str) -> str:
+    if value not in allowed:
+        raise UsageProblem(f"{option} must be one of {', '.join(allowed)}, not {value!r}")
+    return value
+
+
+def readout_plan(text: str, line_order: str | None):
+    """Turn ``--readout`` into (seconds or None, line order, origin, resolver or None).
+
+    Accepts a duration, ``auto`` (measured from the clip's own motion) or the
+    name of a saved camera.
+    """
+    if text.strip().lower() == "auto":
+        from skewfix.measure.selfcal import auto_readout_resolver
+
+        return None, line_order or "top-down", "measured from this clip's motion", auto_readout_resolver(line_order)
+    try:
+        return parse_duration(text), line_order or "top-down", "given on the command line", None
+    except UsageProblem:
+        if not _NAME.match(text.strip()):
+            raise
+    from skewfix.cameras import camera_resolver
+
+    return camera_resolver(text.strip(), line_order)
+
+
+@app.command("fix")
+def fix_command(
+    input: str = typer.Argument(..., help="Clip or numbered image sequence (plate.%04d.tif) to correct."),
+    output: str = typer.Argument(..., help="Where to write the corrected clip or sequence."),
+    readout: str = typer.Option(..., "--readout", "-r",
+                                help="Readout time (18.5ms, 0.0185s, 18500us; bare number = ms), "
+                                     "'auto' to measure it from this clip, or a saved camera's name."),
+    line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
+    reference_line: str = typer.Option("middle", "--reference-line",
+                                       help="Row whose instant the corrected frame shows: middle, top or bottom."),
+    border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge, black or crop."),
+    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
+    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16, visually lossless)."),
+    preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
+    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input (e.g. 24000/1001)."),
+    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+):
+    """Remove rolling-shutter skew (lean, stretch, wobble) from INPUT and write OUTPUT."""
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    if line_order is not None:
+        choice(line_order, LINE_ORDERS, "--line-order")
+    choice(reference_line, REFERENCE_LINES, "--reference-line")
+    choice(border, BORDERS, "--border")
+    if codec is not None:
+        from skewfix.encode import CODECS
+
+        choice(codec.lower(), tuple(CODECS), "--codec")
+    if crf is not None and not 0 <= crf <= 51:
+        raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
+    seconds, order, origin, resolver = readout_plan(readout, line_order)
+    options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
+                         reference_line=reference_line, border=border, codec=codec, crf=crf,
+                         preset=preset, force=force, fps=parse_rate(fps))
+    with TerminalProgress(quiet) as progress:
+        result = fix_clip(input, output, options, progress, readout_resolver=resolver)
+    say = (lambda *_: None) if quiet else (lambda m: typer.echo(m, err=True))
+    say(f"readout {result.readout * 1e3:.3f} ms ({result.line_order}, {result.readout_origin})")
+    for note in result.notes:
+        typer.echo(f"note: {note}", err=True)
+    say(f"wrote {result.frames_written} frames to {result.output}")

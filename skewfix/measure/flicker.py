@@ -1,0 +1,620 @@
+"""Readout time from the flicker bands of a light (DESIGN.md, "Measuring the
+readout", item 1).
+
+A light whose intensity varies at ``f`` Hz paints horizontal bands on a rolling
+shutter sensor, because each row starts its exposure at its own time
+``t(k, y) = t_k + readout * y / H`` (top-down; ``H - 1 - y`` for bottom-up).
+In the log of the per-row mean luminance the bands are a sinusoid in ``y`` with
+``kappa = f * readout`` cycles per frame height (a band period of
+``H / (f * readout)`` rows), whose phase moves from frame to frame by
+``2 pi f (t_{k+1} - t_k)``.
+
+The fit, all frames jointly:
+
+1. log of the row profiles (a power-law transfer curve and the multiplicative
+   gradient/vignetting of the wall become additive);
+2. nuisance removed by projection: a low-order Legendre polynomial in ``y`` per
+   frame (lighting gradient, vignetting, exposure changes); when the bands
+   drift between frames, also a free per-row profile common to all frames (the
+   wall's texture and the lens falloff), after re-aligning the frames for small
+   vertical camera shake;
+3. a coarse scan of ``kappa`` over ``(0, f * frame_interval]`` (a readout no
+   longer than the frame interval) by the energy a per-frame sinusoid explains
+   (a periodogram with the nuisance projected out), then a nonlinear least
+   squares refinement (scipy.optimize.least_squares) of ``kappa`` with the
+   per-frame amplitudes and phases profiled out (variable projection);
+4. one-sigma uncertainty from the Jacobian and the residual variance, and a
+   heteroscedasticity-and-autocorrelation-consistent (Newey-West) sandwich
+   along the rows; the larger of the two is reported;
+5. the line order from the direction in which the band phase moves between
+   frames against the light's phase ``2 pi f t_k``; when ``f / fps`` is (near)
+   a whole number the bands stand still and the order is undetermined.
+
+Exposure integrates the light (a box filter), so band contrast falls as
+``|sinc(f * exposure)|`` and vanishes at exposures of ``n / f``. A square-wave
+(PWM) light has harmonics; only the fundamental is fitted.
+
+Safety: flickering and strobing test lights can trigger seizures in people
+with photosensitive epilepsy; mains-powered light rigs are for qualified hands.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from skewfix.errors import InputError, MeasurementRefused
+from skewfix.measure.result import ReadoutEstimate
+
+__all__ = ["measure_flicker", "row_profiles_from_luma", "plot_flicker"]
+
+# Smallest number of band cycles over the frame height that can be told from
+# a smooth background (below this the bands are one broad swell).
+_KAPPA_MIN = 0.35
+# Coarse scan step, cycles per frame height (about 1/25 of a resolution cell).
+_KAPPA_STEP = 0.04
+# Legendre degree of the per-frame background.
+_DEG_PER_FRAME = 4      # still bands: background must carry vignetting + gradient
+_DEG_COMMON = 2         # drifting bands: the common profile carries them
+# Relative tolerance of the light's frequency (from memory: EN 50160 keeps the
+# mains within +-1 % of nominal for 99.5 % of a year on interconnected grids;
+# LED drivers are usually crystal or mains locked).
+_LIGHT_TOL = 0.01
+# Detection thresholds (common practice: a signal well above the noise floor).
+_MIN_F_STAT = 30.0       # band energy per fitted parameter over noise variance
+_MIN_R2 = 0.25           # fraction of the detrended variance the bands explain
+_ORDER_CHI2 = 25.0       # five sigma between the two line orders
+# Harmonics fitted with the fundamental (the readout comes from the fundamental).
+_HARMONICS = 3
+
+_SAFETY = ("flickering or strobing lights can trigger photosensitive seizures, "
+           "and mains-powered light rigs are for qualified hands")
+
+
+# ----------------------------------------------------------------------------
+# profiles
+# ----------------------------------------------------------------------------
+def row_profiles_from_luma(luma: np.ndarray, band: float = 0.5) -> np.ndarray:
+    """Per-row mean of a central column band of a luma plane, as float64.
+
+    ``luma`` is (H, W) for one frame or (n_frames, H, W) for a stack; the
+    result is (H,) or (n_frames, H). ``band`` is the fraction of the width kept
+    around the centre (the corners carry the most vignetting).
+    """
+    a = np.asarray(luma)
+    if a.ndim not in (2, 3):
+        raise InputError("luma must be a 2-D frame or a 3-D stack of frames")
+    if not 0 < band <= 1:
+        raise ValueError("band must be in (0, 1]")
+    w = a.shape[-1]
+    keep = max(1, int(round(w * band)))
+    c0 = (w - keep) // 2
+    return a[..., c0:c0 + keep].mean(axis=-1, dtype=np.float64)
+
+
+# ----------------------------------------------------------------------------
+# small numerical helpers
+# ----------------------------------------------------------------------------
+def _legendre_basis(y, height, degree):
+    """Orthonormal basis (len(y), degree+1) of polynomials in the row."""
+    x = 2.0 * (np.asarray(y, float) + 0.5) / height - 1.0
+    v = np.polynomial.legendre.legvander(x, degree)
+    q, _ = np.linalg.qr(v)
+    return q
+
+
+def _project_out(a, basis):
+    """Remove from each row of ``a`` (…, m) its component in span(basis)."""
+    return a - (a @ basis) @ basis.T
+
+
+def _sin_basis(kappa, y, height, basis, harmonics=1):
+    """Projected cos/sin columns at ``kappa`` cycles per height and its
+    harmonics: (2 * harmonics, m), fundamental first."""
+    ph = 2.0 * np.pi * kappa * (np.asarray(y, float) / height)
+    cols = []
+    for h in range(1, harmonics + 1):
+        cols += [np.cos(h * ph), np.sin(h * ph)]
+    return _project_out(np.stack(cols), basis)
+
+
+def _explained_scan(kappas, r, y, height, basis):
+    """Energy explained by a free per-frame sinusoid at each kappa."""
+    out = np.empty(len(kappas))
+    yy = np.asarray(y, float) / height
+    for i0 in range(0, len(kappas), 256):
+        kk = np.asarray(kappas[i0:i0 + 256], float)
+        ph = 2.0 * np.pi * kk[:, None] * yy[None, :]
+        c = _project_out(np.cos(ph), basis)
+        s = _project_out(np.sin(ph), basis)
+        gcc = np.einsum("ij,ij->i", c, c)
+        gss = np.einsum("ij,ij->i", s, s)
+        gcs = np.einsum("ij,ij->i", c, s)
+        det = gcc * gss - gcs ** 2
+        u = c @ r.T
+        v = s @ r.T
+        num = gss[:, None] * u ** 2 - 2 * gcs[:, None] * u * v + gcc[:, None] * v ** 2
+        with np.errstate(divide="ignore", invalid="ignore"):
+            e = num.sum(axis=1) / det
+        # near kappa -> 0 the sinusoid merges with the polynomial: no evidence
+        e[~np.isfinite(e) | (det < 1e-9 * (gcc * gss + 1e-300))] = 0.0
+        out[i0:i0 + 256] = e
+    return out
+
+
+def _fit_at(kappa, r, y, height, basis, harmonics=1):
+    """Per-frame least-squares cos/sin coefficients at ``kappa`` (and its
+    harmonics); returns coefficients (n, 2*harmonics), model, residual."""
+    x = _sin_basis(kappa, y, height, basis, harmonics)   # (2h, m)
+    g = x @ x.T
+    coef = np.linalg.lstsq(g, x @ r.T, rcond=1e-12)[0].T  # (n, 2h)
+    model = coef @ x
+    return coef, model, r - model
+
+
+def _hac_variance(score, lags):
+    """Newey-West (Bartlett) long-run variance of the sum of ``score``."""
+    s = np.asarray(score, float)
+    v = float(s @ s)
+    for lag in range(1, min(lags, len(s) - 1) + 1):
+        v += 2.0 * (1.0 - lag / (lags + 1.0)) * float(s[:-lag] @ s[lag:])
+    return max(v, 0.0)
+
+
+def _estimate_shifts(q, max_shift):
+    """Per-frame vertical shift of the scene (texture) between frames, rows.
+
+    Returns (shifts, reliable). Frame k is modelled as ``T(y - s_k)``. Only
+    the high-pass part of the log profile is used (the broad flicker bands are
+    filtered out). Shifts are relative to the mean position.
+    """
+    from scipy.interpolate import CubicSpline
+    from scipy.ndimage import gaussian_filter1d
+    from scipy.optimize import minimize_scalar
+
+    n, h = q.shape
+    hp = q - gaussian_filter1d(q, sigma=3.0, axis=1, mode="nearest")
+    m = int(max_shift) + 3
+    if h < 8 * m or n < 2:
+        return np.zeros(n), False
+    core = slice(m, h - m)
+    y = np.arange(h, dtype=float)
+    shifts = np.zeros(n)
+    for _ in range(3):
+        aligned = np.empty_like(hp)
+        for k in range(n):
+            aligned[k] = np.interp(y + shifts[k], y, hp[k])
+        ref = aligned.mean(axis=0)
+        spline = CubicSpline(y, ref)
+        ref_energy = float(np.sum(ref[core] ** 2))
+        new = np.zeros(n)
+        for k in range(n):
+            target = hp[k, core]
+            lags = np.arange(-int(max_shift), int(max_shift) + 1)
+            costs = [np.sum((target - np.interp(y[core] - L, y, ref)) ** 2) for L in lags]
+            l0 = lags[int(np.argmin(costs))]
+            res = minimize_scalar(
+                lambda s_: float(np.sum((target - spline(y[core] - s_)) ** 2)),
+                bounds=(l0 - 1.0, l0 + 1.0), method="bounded",
+                options={"xatol": 1e-3})
+            new[k] = res.x
+        new -= new.mean()
+        shifts = new
+    # reliable when the scene's own detail dominates what is left over
+    left = np.empty_like(hp)
+    for k in range(n):
+        left[k] = hp[k] - spline(y - shifts[k])
+    left_energy = float(np.sum(left[:, core] ** 2)) / n
+    reliable = ref_energy > 10.0 * left_energy
+    return shifts, reliable
+
+
+def _no_bands_message(light_hz, exposure_s, global_hint):
+    period_ms = 1e3 / light_hz
+    why = []
+    if exposure_s is not None and exposure_s > 0:
+        s = abs(np.sinc(light_hz * exposure_s))
+        if s < 0.2:
+            why.append(
+                f"the exposure {exposure_s * 1e3:.3g} ms is (near) a whole multiple "
+                f"of the flicker period 1/f = {period_ms:.3g} ms, which cancels the bands")
+    if not why:
+        why.append(f"the exposure may be a whole multiple of the flicker period "
+                   f"1/f = {period_ms:.3g} ms, or the light may not flicker at "
+                   f"{light_hz:g} Hz")
+    if global_hint:
+        why.append("the frames change brightness with the light but the rows do not, "
+                   "so the camera may have a global shutter (readout 0), which shows none")
+    else:
+        why.append("a global-shutter camera shows none either")
+    return ("no flicker bands found (band contrast below the noise): " + "; ".join(why)
+            + "; shoot at a fast shutter (1/1000 s or faster) on a plain, evenly lit wall "
+            "under the flickering light (note: " + _SAFETY + ")")
+
+
+def _wrap(x, period):
+    return (x + period / 2.0) % period - period / 2.0
+
+
+# ----------------------------------------------------------------------------
+# line order
+# ----------------------------------------------------------------------------
+def _line_order(z, t, light_hz, frame_interval, centred, sigma_z2):
+    """Decide the line order from the frame-to-frame band phase.
+
+    ``z`` holds each frame's complex band amplitude at row 0 (phase of the
+    light seen by row 0). Top-down puts ``z_k ~ Z exp(+i 2 pi f' t_k)``,
+    bottom-up ``z_k ~ Z exp(-i 2 pi f' t_k)``, with ``f'`` within the light's
+    tolerance of ``light_hz``. Returns (order, notes, info).
+    """
+    n = len(z)
+    f = float(light_hz)
+    fps = 1.0 / frame_interval
+    ratio = f / fps
+    info = {"f_over_fps": ratio}
+    if n < 3:
+        return "undetermined", [f"line order undetermined: {n} frame(s) cannot show the "
+                                "bands drifting"], info
+    beat = _wrap(f, fps)                         # top-down drift, Hz
+    sep = abs(_wrap(2.0 * beat, fps))             # top-down vs bottom-up drift
+    tol = _LIGHT_TOL * f
+    duration = float(np.ptp(t))
+    info.update(beat_hz=beat, separation_hz=sep)
+    whole = abs(ratio - round(ratio)) < 1e-6
+    if sep <= 2.0 * tol or duration * sep < 0.5:
+        if whole:
+            why = (f"the bands stand still (f/fps = {ratio:.6g} is a whole number), so "
+                   "the line order is undetermined")
+        elif abs(ratio - round(ratio)) < 0.25:
+            why = (f"the bands nearly stand still (f/fps = {ratio:.6g}; their drift of "
+                   f"{abs(beat):.3g} Hz is within the light's frequency tolerance), so "
+                   "the line order is undetermined")
+        else:
+            why = (f"the bands alternate (f/fps = {ratio:.6g} is near a half-whole "
+                   "number), so both line orders look alike: undetermined")
+        return "undetermined", [why + "; shoot at a frame rate where f/fps is not near a "
+                                "whole or half-whole number to get the order"], info
+
+    tt = t - t[0]
+    step = 1.0 / (20.0 * max(duration, 1e-3))
+    fgrid = np.arange(f * (1 - _LIGHT_TOL), f * (1 + _LIGHT_TOL) + step, step)
+    best = {}
+    for sign, name in ((1.0, "top-down"), (-1.0, "bottom-up")):
+        w = np.exp(1j * sign * 2 * np.pi * fgrid[:, None] * tt[None, :])
+        if centred:
+            w = w - w.mean(axis=1, keepdims=True)
+        ww = np.sum(np.abs(w) ** 2, axis=1)
+        proj = np.abs(w.conj() @ z) ** 2 / np.maximum(ww, 1e-300)
+        i = int(np.argmax(proj))
+        rss = float(np.sum(np.abs(z) ** 2) - proj[i])
+        best[name] = (rss, float(fgrid[i]))
+    (b_name, (b_rss, b_f)), (w_name, (w_rss, _)) = sorted(best.items(), key=lambda kv: kv[1][0])
+    dof = max(2 * n - 3, 1)
+    scale = max(1.0, b_rss / (dof * sigma_z2)) if sigma_z2 > 0 else 1.0
+    chi = (w_rss - b_rss) / (sigma_z2 * scale) if sigma_z2 > 0 else 0.0
+    info.update(rss_top_down=best["top-down"][0], rss_bottom_up=best["bottom-up"][0],
+                order_chi2=chi, light_hz_fit=b_f)
+    if chi > _ORDER_CHI2:
+        return b_name, [f"line order {b_name} from the band drift between frames "
+                        f"(light fitted at {b_f:.4g} Hz)"], info
+    return "undetermined", ["line order undetermined: the band drift does not tell the two "
+                            "orders apart clearly (too few frames or too much noise)"], info
+
+
+# ----------------------------------------------------------------------------
+# the estimator
+# ----------------------------------------------------------------------------
+def measure_flicker(
+    row_profiles: np.ndarray,
+    frame_times: np.ndarray,
+    light_hz: float,
+    frame_interval: float,
+    exposure_s: float | None = None,
+) -> ReadoutEstimate:
+    """Measure the readout time from flicker bands, fitting all frames jointly.
+
+    row_profiles   (n_frames, H) per-row mean luminance of each frame, full
+                   stored height (see ``row_profiles_from_luma``)
+    frame_times    (n_frames,) start time of each frame, seconds (from the
+                   timestamps; need not be evenly spaced)
+    light_hz       intensity frequency of the light: 100 or 120 for mains
+                   lighting on 50 or 60 Hz, or an LED driver's rate
+    frame_interval nominal frame interval, seconds; the readout searched is at
+                   most this
+    exposure_s     shutter time if known (only used to explain a failure and
+                   to note the expected band contrast ``|sinc(f*exposure)|``)
+
+    Raises MeasurementRefused when there are no bands to measure. Filming the
+    test clip: flickering/strobing lights can trigger photosensitive seizures;
+    mains-powered light rigs are for qualified hands.
+    """
+    from scipy.optimize import least_squares
+
+    p = np.asarray(row_profiles, dtype=np.float64)
+    if p.ndim == 1:
+        p = p[None, :]
+    if p.ndim != 2:
+        raise InputError("row_profiles must be (n_frames, height)")
+    n, height = p.shape
+    t = np.asarray(frame_times, dtype=np.float64).reshape(-1)
+    if len(t) != n:
+        raise InputError(f"{n} row profiles but {len(t)} frame times")
+    if n < 1 or height < 32:
+        raise InputError("need at least one frame of at least 32 rows")
+    if not (np.all(np.isfinite(p)) and np.all(np.isfinite(t))):
+        raise InputError("row profiles and frame times must be finite")
+    f = float(light_hz)
+    if not f > 0:
+        raise InputError("the light frequency must be positive")
+    if not frame_interval > 0:
+        raise InputError("the frame interval must be positive")
+    frame_interval = float(frame_interval)
+    level = float(np.median(p))
+    if not level > 0:
+        raise MeasurementRefused(
+            "the frames are black: light the wall and shoot again (fast shutter, "
+            "e.g. 1/1000 s or faster, on a plain, evenly lit wall)")
+
+    notes: list[str] = []
+    kappa_max = f * frame_interval                  # readout fraction at most 1
+    if kappa_max <= _KAPPA_MIN * 1.5:
+        raise MeasurementRefused(
+            f"a {f:g} Hz light cannot paint even one band within a frame interval of "
+            f"{frame_interval * 1e3:.3g} ms: use a faster-flickering light (an LED driver "
+            "at several hundred Hz), shot at a fast shutter on a plain, evenly lit wall")
+
+    q = np.log(np.maximum(p, level * 1e-3))
+    tt = t - t[0]
+    theta = 2.0 * np.pi * f * tt
+    drift_frac = 1.0 - abs(np.mean(np.exp(1j * theta))) ** 2 if n > 1 else 0.0
+    common = n >= 3 and drift_frac >= 0.5
+
+    # ---- frame alignment for camera shake (texture moves, bands do not) ----
+    shifts = np.zeros(n)
+    rows = np.arange(height)
+    if common:
+        max_shift = max(2, int(round(0.02 * height)))
+        s_est, reliable = _estimate_shifts(q, max_shift)
+        if reliable and np.max(np.abs(s_est)) > 0.05:
+            shifts = s_est
+            margin = int(math.ceil(np.max(np.abs(shifts)))) + 2
+            rows = np.arange(margin, height - margin)
+            yfull = np.arange(height, dtype=float)
+            q = np.stack([np.interp(rows + shifts[k], yfull, q[k]) for k in range(n)])
+            notes.append(f"frames re-aligned for vertical shake of up to "
+                         f"{np.max(np.abs(shifts)):.2g} rows")
+        else:
+            q = q[:, rows]
+    y = rows.astype(float)
+
+    degree = _DEG_COMMON if common else _DEG_PER_FRAME
+    basis = _legendre_basis(y, height, degree)
+
+    def detrend(qq):
+        r = qq - qq.mean(axis=0) if common else qq
+        return _project_out(r, basis)
+
+    used = np.arange(n)
+    r = detrend(q)
+    kappas = np.arange(_KAPPA_MIN, kappa_max + 1e-12, _KAPPA_STEP)
+    if kappas[-1] < kappa_max:
+        kappas = np.append(kappas, kappa_max)
+
+    def refine(r_data, k0, lo, hi, nh):
+        lo, hi = max(lo, _KAPPA_MIN), min(hi, kappa_max)
+        if hi - lo < 1e-9:
+            lo, hi = k0 - 1e-6, k0 + 1e-6
+
+        def resid(par):
+            return _fit_at(par[0], r_data, y, height, basis, nh)[2].ravel()
+
+        x0 = min(max(k0, lo + 1e-9), hi - 1e-9)
+        return least_squares(resid, [x0], bounds=([lo], [hi]), jac="3-point",
+                             x_scale=[_KAPPA_STEP], xtol=1e-12, ftol=1e-12, gtol=1e-12)
+
+    def fit(r_data):
+        # coarse: the fundamental alone (the strongest component, so no octave error)
+        scan = _explained_scan(kappas, r_data, y, height, basis)
+        k0 = float(kappas[int(np.argmax(scan))])
+        k1 = float(refine(r_data, k0, k0 - 2 * _KAPPA_STEP, k0 + 2 * _KAPPA_STEP, 1).x[0])
+        # fine: fundamental plus harmonics (the log, the transfer curve and PWM
+        # lights all make harmonics; left out, they pull the fundamental)
+        sol = refine(r_data, k1, 0.85 * k1, 1.15 * k1, _HARMONICS)
+        return scan, float(sol.x[0]), sol
+
+    scan, kappa, sol = fit(r)
+    # drop frames that do not fit at all (a flash, a cut, a bump): common practice
+    _, _, res0 = _fit_at(kappa, r, y, height, basis, _HARMONICS)
+    frame_rms = np.sqrt(np.mean(res0 ** 2, axis=1))
+    med = float(np.median(frame_rms))
+    bad = frame_rms > 5.0 * med + 1e-12
+    if n >= 4 and 0 < bad.sum() <= n // 4:
+        used = np.flatnonzero(~bad)
+        notes.append(f"{int(bad.sum())} frame(s) left out as outliers: "
+                     f"{', '.join(map(str, np.flatnonzero(bad)))}")
+        q, t, tt, shifts = q[used], t[used], tt[used], shifts[used]
+        n = len(used)
+        common = common and n >= 3
+        r = detrend(q)
+        scan, kappa, sol = fit(r)
+
+    coef, model, res = _fit_at(kappa, r, y, height, basis, _HARMONICS)
+    m = len(y)
+    ssr = float(np.sum(res ** 2))
+    n_eff = (n - 1 if common else n) * m
+    n_par = n * (degree + 1) + 2 * _HARMONICS * n + 1
+    dof = max(n_eff - n_par, 1)
+    sigma2 = ssr / dof
+    explained = float(np.sum(model ** 2))
+    total = float(np.sum(r ** 2))
+    r2 = explained / total if total > 0 else 0.0
+    f_stat = (explained / (2 * _HARMONICS * max(n - (1 if common else 0), 1))) / max(sigma2, 1e-300)
+
+    # frame-to-frame brightness: a global shutter under flicker changes the
+    # whole frame, not the rows
+    fmean = q.mean(axis=1)
+    fm = fmean - fmean.mean()
+    global_hint = False
+    if n >= 3:
+        th = 2 * np.pi * f * tt
+        a_ = np.stack([np.cos(th), np.sin(th)], axis=1)
+        if common:
+            a_ = a_ - a_.mean(axis=0)
+        if np.linalg.matrix_rank(a_) == 2:
+            cf, *_ = np.linalg.lstsq(a_, fm, rcond=None)
+            amp_frame = float(np.hypot(*cf))
+            noise_frame = math.sqrt(sigma2 / m) + 1e-12
+            global_hint = amp_frame > 10 * noise_frame and amp_frame > 1e-3
+        elif np.std(fm) > 1e-3:
+            global_hint = True
+
+    if f_stat < _MIN_F_STAT or r2 < _MIN_R2:
+        raise MeasurementRefused(_no_bands_message(f, exposure_s, global_hint))
+    if kappa < _KAPPA_MIN + 0.5 * _KAPPA_STEP:
+        raise MeasurementRefused(
+            f"the bands are wider than the frame (under {_KAPPA_MIN:g} cycles over the "
+            f"height): a readout under about {_KAPPA_MIN / f * 1e3:.2g} ms cannot be measured "
+            f"with a {f:g} Hz light; use a faster-flickering light, at a fast shutter on a "
+            "plain, evenly lit wall")
+
+    # ---- uncertainty -------------------------------------------------------
+    jac = np.asarray(sol.jac).reshape(-1)
+    jtj = float(jac @ jac)
+    var_white = sigma2 / jtj if jtj > 0 else math.inf
+    score = (jac.reshape(n, m) * res).sum(axis=0)      # frames may correlate
+    lags = max(8, m // 20)
+    var_hac = _hac_variance(score, lags) / jtj ** 2 if jtj > 0 else math.inf
+    sigma_kappa = math.sqrt(max(var_white, var_hac))
+
+    readout = kappa / f
+    sigma_readout = sigma_kappa / f
+    if kappa > kappa_max - 0.5 * _KAPPA_STEP:
+        notes.append("the fit sits at the longest readout searched (the frame interval): "
+                     "check --light-hz (a light at twice the rate stated doubles the readout)")
+
+    # ---- line order ----------------------------------------------------------
+    # complex band amplitude per frame at sensor row 0: band = Re(z e^{i 2 pi kappa y/H});
+    # frames re-aligned by s_k see sensor row y + s_k
+    z = (coef[:, 0] - 1j * coef[:, 1]) * np.exp(-2j * np.pi * kappa * shifts / height)
+    xb = _sin_basis(kappa, y, height, basis, _HARMONICS)
+    ginv = np.linalg.pinv(xb @ xb.T)
+    sigma_z2 = sigma2 * float(ginv[0, 0] + ginv[1, 1])
+    order, order_notes, order_info = _line_order(z, t, f, frame_interval, common, sigma_z2)
+    notes.extend(order_notes)
+
+    if common:
+        notes.append("bands drift between frames: the profile common to all frames "
+                     "(wall texture, vignetting) was removed before fitting")
+    else:
+        notes.append("bands (nearly) still: a smooth background was fitted per frame; "
+                     "texture on the wall can bias this, so use a plain, evenly lit wall")
+    if exposure_s is not None and exposure_s > 0:
+        sf = abs(float(np.sinc(f * exposure_s)))
+        if sf < 0.5:
+            notes.append(f"exposure {exposure_s * 1e3:.3g} ms keeps only {sf:.0%} of the band "
+                         "contrast (|sinc(f*exposure)|): a faster shutter gives cleaner bands")
+
+    amp = np.abs(z)
+    diagnostics = {
+        "rows": y,
+        "band_measured": r,
+        "band_model": model,
+        "frame_times": t,
+        "amplitude": amp,
+        "phase": np.angle(z),
+        "cycles_per_height": kappa,
+        "band_period_rows": height / kappa,
+        "light_hz": f,
+        "scan_readout_s": kappas / f,
+        "scan_explained": scan / total if total > 0 else scan,
+        "shift_rows": shifts,
+        "fit_mode": "common-profile" if common else "per-frame",
+        "r2": r2,
+        "f_stat": f_stat,
+        "residual_rms": math.sqrt(ssr / max(res.size, 1)),
+        "sigma_white_s": math.sqrt(var_white) / f,
+        "sigma_hac_s": math.sqrt(var_hac) / f,
+        "line_order_info": order_info,
+    }
+    return ReadoutEstimate(
+        readout_s=readout,
+        uncertainty_s=sigma_readout,
+        line_order=order,
+        method="flicker",
+        frames_used=[int(i) for i in used],
+        height=height,
+        frame_interval=frame_interval,
+        diagnostics=diagnostics,
+        notes=notes,
+    )
+
+
+# ----------------------------------------------------------------------------
+# plot
+# ----------------------------------------------------------------------------
+def plot_flicker(estimate: ReadoutEstimate, path) -> None:
+    """Write a PNG to check a flicker measurement by eye.
+
+    Top: the measured band profile (detrended log luminance per row) of a few
+    frames with the fitted sinusoid. Middle: the scan of explained band energy
+    over the candidate readouts, the result marked. Bottom: the band phase of
+    each frame against time with what each line order predicts.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    d = estimate.diagnostics
+    if not d or "band_measured" not in d:
+        raise ValueError("the estimate has no flicker diagnostics to plot")
+    rows = d["rows"]
+    meas = d["band_measured"]
+    model = d["band_model"]
+    n = meas.shape[0]
+    fig, axes = plt.subplots(3, 1, figsize=(10, 10), constrained_layout=True)
+
+    ax = axes[0]
+    picks = np.unique(np.linspace(0, n - 1, min(n, 4)).round().astype(int))
+    spread = 2.5 * float(np.max(np.abs(model))) if np.max(np.abs(model)) > 0 else 1.0
+    for j, k in enumerate(picks):
+        off = -j * spread
+        ax.plot(rows, meas[k] + off, color="0.55", lw=0.8,
+                label="measured (detrended)" if j == 0 else None)
+        ax.plot(rows, model[k] + off, color="C3", lw=2.0,
+                label="fitted bands" if j == 0 else None)
+        ax.text(rows[-1], off, f" frame {estimate.frames_used[k]}", va="center", fontsize=8)
+    ax.set_xlabel("row (stored orientation, 0 = top)")
+    ax.set_ylabel("log luminance, frames offset")
+    ax.set_title(f"band period {d['band_period_rows']:.1f} rows "
+                 f"({d['cycles_per_height']:.4f} cycles per frame height)")
+    ax.legend(loc="upper right", fontsize=8)
+
+    ax = axes[1]
+    ax.plot(np.asarray(d["scan_readout_s"]) * 1e3, d["scan_explained"], color="C0")
+    ax.axvline(estimate.readout_s * 1e3, color="C3", ls="--",
+               label=f"result {estimate.readout_s * 1e3:.3f} ms")
+    ax.set_xlabel("candidate readout (ms)")
+    ax.set_ylabel("fraction of detrended\nvariance explained")
+    ax.legend(loc="upper right", fontsize=8)
+
+    ax = axes[2]
+    t = np.asarray(d["frame_times"])
+    ph = np.unwrap(np.asarray(d["phase"]))
+    ax.plot(t, ph - ph[0], "o", color="C0", ms=4, label="measured band phase")
+    f = d["light_hz"]
+    info = d.get("line_order_info", {})
+    fl = info.get("light_hz_fit", f)
+    for sign, name, col in ((1, "top-down", "C2"), (-1, "bottom-up", "C1")):
+        pred = _wrap(sign * 2 * np.pi * fl * (t - t[0]), 2 * np.pi)
+        ax.plot(t, np.unwrap(pred), "-", color=col, lw=1, label=f"{name} predicts")
+    ax.set_xlabel("frame time (s)")
+    ax.set_ylabel("phase (rad, unwrapped)")
+    ax.legend(loc="best", fontsize=8)
+
+    fig.suptitle(f"flicker ({f:g} Hz): readout {estimate.readout_s * 1e3:.3f} ± "
+                 f"{estimate.uncertainty_s * 1e3:.3f} ms, {estimate.line_order}, "
+                 f"{len(estimate.frames_used)} frames", fontsize=13)
+    fig.savefig(str(path), dpi=100)
+    plt.close(fig)
