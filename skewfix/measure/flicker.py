@@ -75,12 +75,17 @@ _SAFETY = ("flickering or strobing lights can trigger photosensitive seizures, "
 # ----------------------------------------------------------------------------
 # profiles
 # ----------------------------------------------------------------------------
-def row_profiles_from_luma(luma: np.ndarray, band: float = 0.5) -> np.ndarray:
+def row_profiles_from_luma(luma: np.ndarray, band: float = 0.5,
+                           black_level: float = 0.0) -> np.ndarray:
     """Per-row mean of a central column band of a luma plane, as float64.
 
     ``luma`` is (H, W) for one frame or (n_frames, H, W) for a stack; the
     result is (H,) or (n_frames, H). ``band`` is the fraction of the width kept
     around the centre (the corners carry the most vignetting).
+    ``black_level`` is subtracted from the means: the code value of black, 16
+    for limited-range 8-bit video (64 for 10-bit; ITU-R BT.709 coding ranges,
+    from memory). With it the flicker fit sees light that is a pure power of
+    the scene's, so wall shading and bands separate exactly in the log.
     """
     a = np.asarray(luma)
     if a.ndim not in (2, 3):
@@ -90,7 +95,7 @@ def row_profiles_from_luma(luma: np.ndarray, band: float = 0.5) -> np.ndarray:
     w = a.shape[-1]
     keep = max(1, int(round(w * band)))
     c0 = (w - keep) // 2
-    return a[..., c0:c0 + keep].mean(axis=-1, dtype=np.float64)
+    return a[..., c0:c0 + keep].mean(axis=-1, dtype=np.float64) - float(black_level)
 
 
 # ----------------------------------------------------------------------------
