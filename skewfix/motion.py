@@ -245,10 +245,18 @@ def _fit_segment(pairs, clock: RowClock, width, first, last, settings: FitSettin
     scales = np.array([1.0, 1.0, radius, radius])[:n_curves]
     penalty = sp.block_diag([pen_one * (settings.smoothness * s * s) for s in scales], format="csr")
     ridge = sp.identity(n_curves * n_coef, format="csr") * 1e-9
-    ridge_rot = sp.block_diag(
-        [sp.csr_matrix((n_coef, n_coef))] * 2 + [sp.identity(n_coef) * 1e-4 * radius**2] * (n_curves - 2),
-        format="csr",
-    ) if n_curves == 4 else None
+    # Gauge: the world plane may be shifted, rotated or scaled freely (q -> s R q + d
+    # with X, theta, sigma following), which leaves every image unchanged. Pin all
+    # four curves to zero at the shot's first frame so the solution is unique.
+    a_idx, a_w = bspline_basis(np.array([clock.frame_times[first]]), t_lo, spacing, n_coef)
+    anchor_rows = []
+    for curve in range(n_curves):
+        row = np.zeros(n_curves * n_coef)
+        row[curve * n_coef + a_idx[0]] = a_w[0] * np.sqrt(1e3) * scales[curve]
+        anchor_rows.append(row)
+    anchor = sp.csr_matrix(np.array(anchor_rows))
+    ridge = ridge + (anchor.T @ anchor).tocsr()
+    ridge_rot = None
 
     rows_x = np.arange(n)
     rows_y = np.arange(n) + n

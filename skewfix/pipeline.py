@@ -309,6 +309,10 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     from skewfix.encode import VideoSink, check_output_path
 
     check_output_path(input_path, output_path, options.force)
+    with open_source(input_path, options.fps) as probe:  # refuse early, before any decoding
+        interval = probe.info.frame_interval
+        if readout_resolver is None and interval and options.readout > interval * (1 + 1e-9):
+            RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
     times = StageTimes()
     analysis = analyse(input_path, options.fps, options.tracker, progress, times)
     notes: list[str] = []

@@ -16,6 +16,7 @@ colour conversion happens.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import cv2
 import numpy as np
@@ -32,7 +33,8 @@ class WarpMap:
     """A displacement field on a coarse grid for one frame.
 
     ``dx``/``dy`` hold ``source - target`` at the coarse sample positions
-    ``(i + 0.5) * W / gw - 0.5`` (cell centres, as ``cv2.resize`` expects).
+    ``linspace(0, W-1, gw)`` by ``linspace(0, H-1, gh)``: the outermost samples
+    lie on the frame's edge pixels, so upsampling never extrapolates.
     """
 
     dx: np.ndarray
@@ -46,28 +48,49 @@ class WarpMap:
     def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
         """Absolute source coordinates (map_x, map_y) for a plane of the given size.
 
-        ``subsample`` is the plane's (horizontal, vertical) subsampling factor.
+        ``subsample`` is the plane's (horizontal, vertical) subsampling factor;
+        chroma planes get the luma displacement scaled down by it.
         """
         width = width or self.width
         height = height or self.height
         fx, fy = subsample
-        dx = cv2.resize(self.dx, (width, height), interpolation=cv2.INTER_LINEAR)
-        dy = cv2.resize(self.dy, (width, height), interpolation=cv2.INTER_LINEAR)
-        if fx != 1:
-            dx *= 1.0 / fx
-        if fy != 1:
-            dy *= 1.0 / fy
-        dx += np.arange(width, dtype=np.float32)[None, :]
-        dy += np.arange(height, dtype=np.float32)[:, None]
-        return dx, dy
+        ux, uy = _upsampling_index(self.width, self.height, width, height, self.dx.shape[1], self.dx.shape[0], fx, fy)
+        coarse = cv2.merge([self.dx * (1.0 / fx), self.dy * (1.0 / fy)])
+        both = cv2.remap(coarse, ux, uy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+        mx, my = cv2.split(both)
+        mx += _arange_row(width)
+        my += _arange_col(height)
+        return mx, my
+
+
+@lru_cache(maxsize=16)
+def _upsampling_index(full_w, full_h, width, height, gw, gh, fx, fy):
+    """Fractional coarse-grid indices of every pixel of a (sub-sampled) plane."""
+    # plane pixel centre -> luma coordinate (centre-sited chroma) -> grid index
+    lx = (np.arange(width, dtype=np.float64) + 0.5) * fx - 0.5
+    ly = (np.arange(height, dtype=np.float64) + 0.5) * fy - 0.5
+    gx = np.clip(lx * (gw - 1) / max(full_w - 1, 1), 0, gw - 1).astype(np.float32)
+    gy = np.clip(ly * (gh - 1) / max(full_h - 1, 1), 0, gh - 1).astype(np.float32)
+    ux = np.broadcast_to(gx[None, :], (height, width)).copy()
+    uy = np.broadcast_to(gy[:, None], (height, width)).copy()
+    return ux, uy
+
+
+@lru_cache(maxsize=16)
+def _arange_row(n):
+    return np.arange(n, dtype=np.float32)[None, :]
+
+
+@lru_cache(maxsize=16)
+def _arange_col(n):
+    return np.arange(n, dtype=np.float32)[:, None]
 
 
 def coarse_grid(width: int, height: int, step: int = GRID_STEP):
-    gw = max(2, int(np.ceil(width / step)))
-    gh = max(2, int(np.ceil(height / step)))
-    xs = (np.arange(gw) + 0.5) * width / gw - 0.5
-    ys = (np.arange(gh) + 0.5) * height / gh - 0.5
-    return np.meshgrid(xs, ys)
+    """Sample positions of the coarse map, edge pixels included."""
+    gw = max(2, int(np.ceil((width - 1) / step)) + 1)
+    gh = max(2, int(np.ceil((height - 1) / step)) + 1)
+    return np.meshgrid(np.linspace(0, width - 1, gw), np.linspace(0, height - 1, gh))
 
 
 def _zoom_about_centre(px, py, width, height, zoom):
@@ -126,11 +149,17 @@ def crop_zoom(maps, width: int, height: int, margin: float = 0.5) -> float:
     return zoom_needed
 
 
-def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border: str, fill) -> np.ndarray:
-    """Resample one plane (any of uint8/uint16/float32, 1-4 channels) at its own depth."""
+INTERPOLATIONS = {"linear": cv2.INTER_LINEAR, "cubic": cv2.INTER_CUBIC}
+
+
+def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border: str = "edge", fill=0,
+                interpolation: str = "cubic") -> np.ndarray:
+    """Resample one plane (uint8/uint16/float32, 1-4 channels) at its own depth.
+
+    ``cubic`` is OpenCV's cubic convolution (Keys, 1981); ``linear`` is bilinear.
+    """
     mode = cv2.BORDER_CONSTANT if border == "black" else cv2.BORDER_REPLICATE
-    return cv2.remap(plane, map_x, map_y, cv2.INTER_CUBIC if plane.dtype != np.float32 else cv2.INTER_LINEAR,
-                     borderMode=mode, borderValue=fill)
+    return cv2.remap(plane, map_x, map_y, INTERPOLATIONS[interpolation], borderMode=mode, borderValue=fill)
 
 
 def outside_matte(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:

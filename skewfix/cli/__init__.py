@@ -56,8 +56,17 @@ def _register_commands():
                 raise
 
 
+def _click_exceptions():
+    """typer ships its own copy of click in recent releases; use whichever it runs on."""
+    try:
+        from typer._click import exceptions  # type: ignore[attr-defined]
+    except ImportError:  # older typer runs on the click package itself
+        from click import exceptions
+    return exceptions
+
+
 def main(argv: list[str] | None = None) -> int:
-    import click
+    click = _click_exceptions()
 
     _register_commands()
     signal.signal(signal.SIGTERM, _on_terminate)
@@ -70,7 +79,7 @@ def main(argv: list[str] | None = None) -> int:
             raise
         typer.echo(f"skewfix: {exc}", err=True)
         return exc.exit_code
-    except click.exceptions.NoArgsIsHelpError:
+    except click.NoArgsIsHelpError:
         return 0
     except click.UsageError as exc:
         if debug:
@@ -78,9 +87,11 @@ def main(argv: list[str] | None = None) -> int:
         hint = f" (see 'skewfix {exc.ctx.info_name if exc.ctx and exc.ctx.parent else ''} --help')".replace("  ", " ")
         typer.echo(f"skewfix: {exc.format_message()}{hint}", err=True)
         return 2
-    except click.exceptions.Abort:
+    except getattr(click, "Abort", KeyboardInterrupt):
         typer.echo("skewfix: stopped; nothing was written", err=True)
         return 130
+    except BrokenPipeError:  # e.g. `skewfix --help | head`
+        return 0
     except KeyboardInterrupt:
         typer.echo("skewfix: stopped; nothing was written", err=True)
         return 130

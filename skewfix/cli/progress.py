@@ -12,7 +12,8 @@ class TerminalProgress:
     """A `Progress` callback drawing one bar per stage; silent when ``quiet``."""
 
     def __init__(self, quiet: bool = False):
-        self.quiet = quiet or not sys.stderr.isatty() and False
+        # a bar only makes sense on a terminal; logs and pipes get the summary lines
+        self.quiet = quiet or not sys.stderr.isatty()
         self._progress = None
         self._tasks = {}
         self._started = {}

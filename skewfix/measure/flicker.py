@@ -55,8 +55,14 @@ _KAPPA_MIN = 0.35
 # Coarse scan step, cycles per frame height (about 1/25 of a resolution cell).
 _KAPPA_STEP = 0.04
 # Legendre degree of the per-frame background.
-_DEG_PER_FRAME = 4      # still bands: background must carry vignetting + gradient
-_DEG_COMMON = 2         # drifting bands: the common profile carries them
+_DEG_PER_FRAME = (3, 4, 5)  # still bands: the background carries vignetting and
+                            # gradient; the middle one is used, the spread is
+                            # its model error
+_DEG_COMMON = (1, 2)        # drifting bands: the common profile carries them;
+                            # per frame only what shake and exposure change
+# Smallest share of the band energy that changes from frame to frame before the
+# common-profile fit is tried (1 - |mean exp(i 2 pi f t_k)|^2).
+_MIN_DRIFT = 0.02
 # Relative tolerance of the light's frequency (from memory: EN 50160 keeps the
 # mains within +-1 % of nominal for 99.5 % of a year on interconnected grids;
 # LED drivers are usually crystal or mains locked).
@@ -65,6 +71,8 @@ _LIGHT_TOL = 0.01
 _MIN_F_STAT = 30.0       # band energy per fitted parameter over noise variance
 _MIN_R2 = 0.25           # fraction of the detrended variance the bands explain
 _ORDER_CHI2 = 25.0       # five sigma between the two line orders
+# Largest relative one-sigma uncertainty still reported as a measurement.
+_MAX_REL_SIGMA = 0.10
 # Harmonics fitted with the fundamental (the readout comes from the fundamental).
 _HARMONICS = 3
 
@@ -334,8 +342,6 @@ def measure_flicker(
     test clip: flickering/strobing lights can trigger photosensitive seizures;
     mains-powered light rigs are for qualified hands.
     """
-    from scipy.optimize import least_squares
-
     p = np.asarray(row_profiles, dtype=np.float64)
     if p.ndim == 1:
         p = p[None, :]
@@ -361,7 +367,6 @@ def measure_flicker(
             "the frames are black: light the wall and shoot again (fast shutter, "
             "e.g. 1/1000 s or faster, on a plain, evenly lit wall)")
 
-    notes: list[str] = []
     kappa_max = f * frame_interval                  # readout fraction at most 1
     if kappa_max <= _KAPPA_MIN * 1.5:
         raise MeasurementRefused(
@@ -369,42 +374,199 @@ def measure_flicker(
             f"{frame_interval * 1e3:.3g} ms: use a faster-flickering light (an LED driver "
             "at several hundred Hz), shot at a fast shutter on a plain, evenly lit wall")
 
-    q = np.log(np.maximum(p, level * 1e-3))
+    q_all = np.log(np.maximum(p, level * 1e-3))
     tt = t - t[0]
     theta = 2.0 * np.pi * f * tt
     drift_frac = 1.0 - abs(np.mean(np.exp(1j * theta))) ** 2 if n > 1 else 0.0
-    common = n >= 3 and drift_frac >= 0.5
+    kappas = np.arange(_KAPPA_MIN, kappa_max + 1e-12, _KAPPA_STEP)
+    if kappas[-1] < kappa_max:
+        kappas = np.append(kappas, kappa_max)
+    rows_all = np.arange(height)
 
-    # ---- frame alignment for camera shake (texture moves, bands do not) ----
-    shifts = np.zeros(n)
-    rows = np.arange(height)
-    if common:
+    # ---- candidate fits ------------------------------------------------------
+    # (a) a smooth background per frame: works when the bands stand still; its
+    #     model error is estimated from how the result moves with the degree.
+    per_frame = [_solve(q_all, rows_all, height, d, False, kappas, kappa_max)
+                 for d in _DEG_PER_FRAME]
+    cands = []
+    main = per_frame[len(per_frame) // 2]
+    ks = [c["kappa"] for c in per_frame if c["ok"]]
+    if main["ok"]:
+        main["sys"] = 0.5 * (max(ks) - min(ks))
+        cands.append(main)
+    # (b) when the bands move between frames: a free profile common to all
+    #     frames (texture, vignetting, gradient: no model error from them).
+    shift_note = None
+    if n >= 3 and drift_frac >= _MIN_DRIFT:
+        shifts = np.zeros(n)
+        q_c, rows_c = q_all, rows_all
         max_shift = max(2, int(round(0.02 * height)))
-        s_est, reliable = _estimate_shifts(q, max_shift)
+        s_est, reliable = _estimate_shifts(q_all, max_shift)
         if reliable and np.max(np.abs(s_est)) > 0.05:
             shifts = s_est
             margin = int(math.ceil(np.max(np.abs(shifts)))) + 2
-            rows = np.arange(margin, height - margin)
+            rows_c = np.arange(margin, height - margin)
             yfull = np.arange(height, dtype=float)
-            q = np.stack([np.interp(rows + shifts[k], yfull, q[k]) for k in range(n)])
-            notes.append(f"frames re-aligned for vertical shake of up to "
-                         f"{np.max(np.abs(shifts)):.2g} rows")
-        else:
-            q = q[:, rows]
-    y = rows.astype(float)
+            q_c = np.stack([np.interp(rows_c + shifts[k], yfull, q_all[k]) for k in range(n)])
+            shift_note = (f"frames re-aligned for vertical shake of up to "
+                          f"{np.max(np.abs(shifts)):.2g} rows")
+        com = [_solve(q_c, rows_c, height, d, True, kappas, kappa_max, shifts)
+               for d in _DEG_COMMON]
+        if com[-1]["ok"]:
+            ks = [c["kappa"] for c in com if c["ok"]]
+            com[-1]["sys"] = 0.5 * (max(ks) - min(ks))
+            cands.append(com[-1])
 
-    degree = _DEG_COMMON if common else _DEG_PER_FRAME
+    if not cands:
+        best = main
+        global_hint = _global_shutter_hint(q_all, theta, best["sigma2"], len(rows_all))
+        if best.get("why") == "too wide":
+            raise MeasurementRefused(
+                f"the bands are wider than the frame (under {_KAPPA_MIN:g} cycles over "
+                f"the height): a readout under about {_KAPPA_MIN / f * 1e3:.2g} ms cannot be "
+                f"measured with a {f:g} Hz light; use a faster-flickering light, at a fast "
+                "shutter on a plain, evenly lit wall")
+        raise MeasurementRefused(_no_bands_message(f, exposure_s, global_hint))
+
+    def total(c):
+        return math.hypot(c["sigma"], c["sys"])
+
+    if len(cands) == 2 and total(cands[1]) < 3.0 * total(cands[0]):
+        best = cands[1]          # free of background model error: preferred
+    else:
+        best = min(cands, key=total)
+    common = best["common"]
+
+    notes: list[str] = []
+    if shift_note and common:
+        notes.append(shift_note)
+    if len(best["used"]) < n:
+        out = sorted(set(range(n)) - set(best["used"].tolist()))
+        notes.append(f"{len(out)} frame(s) left out as outliers: {', '.join(map(str, out))}")
+
+    kappa = best["kappa"]
+    sigma_kappa = total(best)
+    if sigma_kappa > _MAX_REL_SIGMA * kappa:
+        if common:
+            why = ("the bands are too faint or too few against what changes between "
+                   "frames (shake, moving texture, compression)")
+        else:
+            why = ("the bands stand still and the wall's own shading is not smooth "
+                   "(texture?), so the two cannot be told apart")
+        raise MeasurementRefused(
+            f"flicker bands found but the readout is uncertain by "
+            f"{sigma_kappa / kappa:.0%}: {why}; shoot at a fast shutter (1/1000 s or "
+            "faster) on a plain, evenly lit wall, at a frame rate where f/fps is not a "
+            "whole number so the bands drift")
+    readout = kappa / f
+    sigma_readout = sigma_kappa / f
+    if kappa > kappa_max - 0.5 * _KAPPA_STEP:
+        notes.append("the fit sits at the longest readout searched (the frame interval): "
+                     "check --light-hz (a light at twice the rate stated doubles the readout)")
+
+    # ---- line order ----------------------------------------------------------
+    # complex band amplitude per frame at sensor row 0: band = Re(z e^{i 2 pi kappa y/H});
+    # frames re-aligned by s_k see sensor row y + s_k
+    used = best["used"]
+    coef = best["coef"]
+    z = (coef[:, 0] - 1j * coef[:, 1]) * np.exp(-2j * np.pi * kappa * best["shifts"] / height)
+    xb = _sin_basis(kappa, best["y"], height, best["basis"], _HARMONICS)
+    ginv = np.linalg.pinv(xb @ xb.T)
+    sigma_z2 = best["sigma2"] * float(ginv[0, 0] + ginv[1, 1])
+    order, order_notes, order_info = _line_order(z, t[used], f, frame_interval, common,
+                                                 sigma_z2)
+    notes.extend(order_notes)
+
+    if common:
+        notes.append("bands drift between frames: the profile common to all frames "
+                     "(wall texture, vignetting, gradient) was removed before fitting")
+    else:
+        notes.append("bands (nearly) still: a smooth background was fitted per frame; "
+                     "texture on the wall can bias this, so use a plain, evenly lit wall")
+    if exposure_s is not None and exposure_s > 0:
+        sf = abs(float(np.sinc(f * exposure_s)))
+        if sf < 0.5:
+            notes.append(f"exposure {exposure_s * 1e3:.3g} ms keeps only {sf:.0%} of the band "
+                         "contrast (|sinc(f*exposure)|): a faster shutter gives cleaner bands")
+
+    # amplitude of the fundamental in log luminance; a profile common to all
+    # frames takes away the part of the bands that does not move, a share
+    # |mean exp(i 2 pi f t_k)|^2 of their energy, which is put back here
+    rms_z = float(np.sqrt(np.mean(np.abs(z) ** 2)))
+    if common:
+        keep = 1.0 - abs(np.mean(np.exp(2j * np.pi * f * (t[used] - t[used][0])))) ** 2
+        band_amplitude = rms_z / math.sqrt(max(keep, 1e-12))
+    else:
+        band_amplitude = rms_z
+
+    diagnostics = {
+        "rows": best["y"],
+        "band_measured": best["r"],
+        "band_model": best["model"],
+        "frame_times": t[used],
+        "amplitude": np.abs(z),
+        "band_amplitude": band_amplitude,
+        "phase": np.angle(z),
+        "cycles_per_height": kappa,
+        "band_period_rows": height / kappa,
+        "light_hz": f,
+        "scan_readout_s": kappas / f,
+        "scan_explained": best["scan"] / best["total"] if best["total"] > 0 else best["scan"],
+        "shift_rows": best["shifts"],
+        "fit_mode": "common-profile" if common else "per-frame",
+        "background_degree": best["degree"],
+        "r2": best["r2"],
+        "f_stat": best["f_stat"],
+        "residual_rms": math.sqrt(best["ssr"] / max(best["res"].size, 1)),
+        "sigma_white_s": best["sigma_white"] / f,
+        "sigma_hac_s": best["sigma_hac"] / f,
+        "sigma_model_s": best["sys"] / f,
+        "candidates": {("common-profile" if c["common"] else "per-frame"):
+                       (c["kappa"] / f, total(c) / f) for c in cands},
+        "line_order_info": order_info,
+    }
+    return ReadoutEstimate(
+        readout_s=readout,
+        uncertainty_s=sigma_readout,
+        line_order=order,
+        method="flicker",
+        frames_used=[int(i) for i in used],
+        height=height,
+        frame_interval=frame_interval,
+        diagnostics=diagnostics,
+        notes=notes,
+    )
+
+
+def _global_shutter_hint(q, theta, sigma2, m):
+    """True when whole frames change brightness in step with the light."""
+    n = q.shape[0]
+    if n < 3:
+        return False
+    fm = q.mean(axis=1)
+    fm = fm - fm.mean()
+    a = np.stack([np.cos(theta), np.sin(theta)], axis=1)
+    a = a - a.mean(axis=0)
+    noise = math.sqrt(max(sigma2, 0.0) / m) + 1e-12
+    if np.linalg.matrix_rank(a, tol=1e-6) == 2:
+        cf, *_ = np.linalg.lstsq(a, fm, rcond=None)
+        amp = float(np.hypot(*cf))
+        return amp > 10 * noise and amp > 1e-3
+    return float(np.std(fm)) > max(10 * noise, 1e-3)
+
+
+def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None):
+    """One joint fit of all frames; returns a dict (``ok`` False: no bands)."""
+    from scipy.optimize import least_squares
+
+    n = q.shape[0]
+    y = np.asarray(rows, dtype=float)
     basis = _legendre_basis(y, height, degree)
+    shifts = np.zeros(n) if shifts is None else np.asarray(shifts, float)
 
     def detrend(qq):
         r = qq - qq.mean(axis=0) if common else qq
         return _project_out(r, basis)
-
-    used = np.arange(n)
-    r = detrend(q)
-    kappas = np.arange(_KAPPA_MIN, kappa_max + 1e-12, _KAPPA_STEP)
-    if kappas[-1] < kappa_max:
-        kappas = np.append(kappas, kappa_max)
 
     def refine(r_data, k0, lo, hi, nh):
         lo, hi = max(lo, _KAPPA_MIN), min(hi, kappa_max)
@@ -419,7 +581,7 @@ def measure_flicker(
                              x_scale=[_KAPPA_STEP], xtol=1e-12, ftol=1e-12, gtol=1e-12)
 
     def fit(r_data):
-        # coarse: the fundamental alone (the strongest component, so no octave error)
+        # coarse: the fundamental alone (the strongest component: no octave error)
         scan = _explained_scan(kappas, r_data, y, height, basis)
         k0 = float(kappas[int(np.argmax(scan))])
         k1 = float(refine(r_data, k0, k0 - 2 * _KAPPA_STEP, k0 + 2 * _KAPPA_STEP, 1).x[0])
@@ -428,17 +590,16 @@ def measure_flicker(
         sol = refine(r_data, k1, 0.85 * k1, 1.15 * k1, _HARMONICS)
         return scan, float(sol.x[0]), sol
 
+    used = np.arange(n)
+    r = detrend(q)
     scan, kappa, sol = fit(r)
     # drop frames that do not fit at all (a flash, a cut, a bump): common practice
     _, _, res0 = _fit_at(kappa, r, y, height, basis, _HARMONICS)
     frame_rms = np.sqrt(np.mean(res0 ** 2, axis=1))
-    med = float(np.median(frame_rms))
-    bad = frame_rms > 5.0 * med + 1e-12
+    bad = frame_rms > 5.0 * float(np.median(frame_rms)) + 1e-12
     if n >= 4 and 0 < bad.sum() <= n // 4:
         used = np.flatnonzero(~bad)
-        notes.append(f"{int(bad.sum())} frame(s) left out as outliers: "
-                     f"{', '.join(map(str, np.flatnonzero(bad)))}")
-        q, t, tt, shifts = q[used], t[used], tt[used], shifts[used]
+        q, shifts = q[used], shifts[used]
         n = len(used)
         common = common and n >= 3
         r = detrend(q)
@@ -447,112 +608,35 @@ def measure_flicker(
     coef, model, res = _fit_at(kappa, r, y, height, basis, _HARMONICS)
     m = len(y)
     ssr = float(np.sum(res ** 2))
-    n_eff = (n - 1 if common else n) * m
-    n_par = n * (degree + 1) + 2 * _HARMONICS * n + 1
-    dof = max(n_eff - n_par, 1)
+    n_frames_eff = n - 1 if common else n
+    n_par = n_frames_eff * (degree + 1) + 2 * _HARMONICS * n_frames_eff + 1
+    dof = max(n_frames_eff * m - n_par, 1)
     sigma2 = ssr / dof
     explained = float(np.sum(model ** 2))
     total = float(np.sum(r ** 2))
     r2 = explained / total if total > 0 else 0.0
-    f_stat = (explained / (2 * _HARMONICS * max(n - (1 if common else 0), 1))) / max(sigma2, 1e-300)
+    f_stat = (explained / (2 * _HARMONICS * max(n_frames_eff, 1))) / max(sigma2, 1e-300)
 
-    # frame-to-frame brightness: a global shutter under flicker changes the
-    # whole frame, not the rows
-    fmean = q.mean(axis=1)
-    fm = fmean - fmean.mean()
-    global_hint = False
-    if n >= 3:
-        th = 2 * np.pi * f * tt
-        a_ = np.stack([np.cos(th), np.sin(th)], axis=1)
-        if common:
-            a_ = a_ - a_.mean(axis=0)
-        if np.linalg.matrix_rank(a_) == 2:
-            cf, *_ = np.linalg.lstsq(a_, fm, rcond=None)
-            amp_frame = float(np.hypot(*cf))
-            noise_frame = math.sqrt(sigma2 / m) + 1e-12
-            global_hint = amp_frame > 10 * noise_frame and amp_frame > 1e-3
-        elif np.std(fm) > 1e-3:
-            global_hint = True
-
-    if f_stat < _MIN_F_STAT or r2 < _MIN_R2:
-        raise MeasurementRefused(_no_bands_message(f, exposure_s, global_hint))
-    if kappa < _KAPPA_MIN + 0.5 * _KAPPA_STEP:
-        raise MeasurementRefused(
-            f"the bands are wider than the frame (under {_KAPPA_MIN:g} cycles over the "
-            f"height): a readout under about {_KAPPA_MIN / f * 1e3:.2g} ms cannot be measured "
-            f"with a {f:g} Hz light; use a faster-flickering light, at a fast shutter on a "
-            "plain, evenly lit wall")
-
-    # ---- uncertainty -------------------------------------------------------
+    # one-sigma uncertainty: Jacobian with the residual variance, and a
+    # Newey-West sandwich along the rows (residuals of neighbouring rows and
+    # of different frames correlate: compression, texture); the larger wins
     jac = np.asarray(sol.jac).reshape(-1)
     jtj = float(jac @ jac)
     var_white = sigma2 / jtj if jtj > 0 else math.inf
-    score = (jac.reshape(n, m) * res).sum(axis=0)      # frames may correlate
-    lags = max(8, m // 20)
-    var_hac = _hac_variance(score, lags) / jtj ** 2 if jtj > 0 else math.inf
-    sigma_kappa = math.sqrt(max(var_white, var_hac))
+    score = (jac.reshape(n, m) * res).sum(axis=0)
+    var_hac = _hac_variance(score, max(8, m // 20)) / jtj ** 2 if jtj > 0 else math.inf
+    sigma = math.sqrt(max(var_white, var_hac))
 
-    readout = kappa / f
-    sigma_readout = sigma_kappa / f
-    if kappa > kappa_max - 0.5 * _KAPPA_STEP:
-        notes.append("the fit sits at the longest readout searched (the frame interval): "
-                     "check --light-hz (a light at twice the rate stated doubles the readout)")
-
-    # ---- line order ----------------------------------------------------------
-    # complex band amplitude per frame at sensor row 0: band = Re(z e^{i 2 pi kappa y/H});
-    # frames re-aligned by s_k see sensor row y + s_k
-    z = (coef[:, 0] - 1j * coef[:, 1]) * np.exp(-2j * np.pi * kappa * shifts / height)
-    xb = _sin_basis(kappa, y, height, basis, _HARMONICS)
-    ginv = np.linalg.pinv(xb @ xb.T)
-    sigma_z2 = sigma2 * float(ginv[0, 0] + ginv[1, 1])
-    order, order_notes, order_info = _line_order(z, t, f, frame_interval, common, sigma_z2)
-    notes.extend(order_notes)
-
-    if common:
-        notes.append("bands drift between frames: the profile common to all frames "
-                     "(wall texture, vignetting) was removed before fitting")
-    else:
-        notes.append("bands (nearly) still: a smooth background was fitted per frame; "
-                     "texture on the wall can bias this, so use a plain, evenly lit wall")
-    if exposure_s is not None and exposure_s > 0:
-        sf = abs(float(np.sinc(f * exposure_s)))
-        if sf < 0.5:
-            notes.append(f"exposure {exposure_s * 1e3:.3g} ms keeps only {sf:.0%} of the band "
-                         "contrast (|sinc(f*exposure)|): a faster shutter gives cleaner bands")
-
-    amp = np.abs(z)
-    diagnostics = {
-        "rows": y,
-        "band_measured": r,
-        "band_model": model,
-        "frame_times": t,
-        "amplitude": amp,
-        "phase": np.angle(z),
-        "cycles_per_height": kappa,
-        "band_period_rows": height / kappa,
-        "light_hz": f,
-        "scan_readout_s": kappas / f,
-        "scan_explained": scan / total if total > 0 else scan,
-        "shift_rows": shifts,
-        "fit_mode": "common-profile" if common else "per-frame",
-        "r2": r2,
-        "f_stat": f_stat,
-        "residual_rms": math.sqrt(ssr / max(res.size, 1)),
-        "sigma_white_s": math.sqrt(var_white) / f,
-        "sigma_hac_s": math.sqrt(var_hac) / f,
-        "line_order_info": order_info,
-    }
-    return ReadoutEstimate(
-        readout_s=readout,
-        uncertainty_s=sigma_readout,
-        line_order=order,
-        method="flicker",
-        frames_used=[int(i) for i in used],
-        height=height,
-        frame_interval=frame_interval,
-        diagnostics=diagnostics,
-        notes=notes,
-    )
+    ok = f_stat >= _MIN_F_STAT and r2 >= _MIN_R2 and math.isfinite(sigma)
+    why = None
+    if not ok:
+        why = "no bands"
+    elif kappa < _KAPPA_MIN + 0.5 * _KAPPA_STEP:
+        ok, why = False, "too wide"
+    return dict(ok=ok, why=why, kappa=kappa, sigma=sigma, sigma_white=math.sqrt(var_white),
+                sigma_hac=math.sqrt(var_hac), sys=0.0, coef=coef, model=model, res=res, r=r,
+                used=used, scan=scan, total=total, r2=r2, f_stat=f_stat, sigma2=sigma2,
+                ssr=ssr, basis=basis, y=y, shifts=shifts, common=common, degree=degree)
 
 
 # ----------------------------------------------------------------------------

@@ -96,7 +96,8 @@ def _antiderivative(t, light_hz, waveform, depth, duty, phase):
         return t - depth / w * (np.cos(w * t + phase) - np.cos(phase))
     if waveform == "ac":
         # A lamp on an AC supply at f/2: power goes as v(t)^2 (Joule's law),
-        # L(t) = (1 - depth) + 2 depth sin^2(2 pi (f/2) t + phase).
+        # L(t) = (1 - depth) + 2 depth sin^2(2 pi (f/2) t + phase); the
+        # instantaneous power has no thermal smoothing here.
         wm = 2 * np.pi * (f / 2)
         sin2_int = t / 2 - (np.sin(2 * (wm * t + phase)) - np.sin(2 * phase)) / (4 * wm)
         return (1 - depth) * t + 2 * depth * sin2_int
@@ -159,7 +160,7 @@ def render_flicker_clip(
     fps: Fraction,
     n_frames: int,
     readout_s: float,
-    light_hz: float,
+    light_hz: float | None,
     line_order: str = "top-down",
     exposure_s: float = 1 / 1000,
     texture: np.ndarray | None = None,
@@ -176,6 +177,8 @@ def render_flicker_clip(
     gamma: float = 1 / 2.2,
     preset: str = "veryfast",
     seed: int = 0,
+    mains_hz: float | None = None,
+    codec_options: dict | None = None,
 ) -> FlickerTruth:
     """Render a rolling-shutter clip of a wall under a flickering light; H.264.
 
@@ -185,8 +188,9 @@ def render_flicker_clip(
     n_frames    number of frames
     readout_s   time from first to last row (0 = global shutter); at most 1/fps
     light_hz    intensity frequency of the light (100 or 120 for mains lamps);
-                for ``waveform="ac"`` the lamp runs on an AC supply of
-                ``light_hz / 2`` and its power v(t)^2 flickers at ``light_hz``
+                may be None with ``waveform="ac"``
+    mains_hz    for ``waveform="ac"``: the AC supply frequency; the lamp's power
+                goes as v(t)^2 (Joule's law), so it flickers at ``2 * mains_hz``
     line_order  "top-down" or "bottom-up"
     exposure_s  exposure (shutter) time; each row integrates the light over it
     texture     None for a plain wall, or an image (grey or RGB) used as the wall
@@ -198,6 +202,8 @@ def render_flicker_clip(
     crf         libx264 constant rate factor
     depth       modulation depth of the light (0..1)
     gamma       exponent of the transfer curve applied to linear light
+    preset      libx264 preset; ``codec_options`` adds further libx264 options
+    seed        seed of the noise and shake
 
     Returns a FlickerTruth. Pictures only: a real flickering/strobing test light
     can trigger photosensitive seizures, and mains-powered rigs are for
@@ -219,6 +225,14 @@ def render_flicker_clip(
         raise ValueError("exposure_s must be between 0 and the frame interval")
     if waveform not in WAVEFORMS:
         raise ValueError(f"waveform must be one of {WAVEFORMS}")
+    if waveform == "ac":
+        if mains_hz is None or not mains_hz > 0:
+            raise ValueError('waveform="ac" needs mains_hz, the supply frequency')
+        if light_hz is not None and abs(light_hz - 2 * mains_hz) > 1e-9 * light_hz:
+            raise ValueError("an AC lamp flickers at twice mains_hz; leave light_hz None")
+        light_hz = 2.0 * float(mains_hz)
+    elif light_hz is None or not light_hz > 0:
+        raise ValueError("light_hz must be a positive frequency")
     if not 0 <= depth <= 1:
         raise ValueError("depth must be between 0 and 1")
 
@@ -262,7 +276,9 @@ def render_flicker_clip(
         stream.pix_fmt = "yuv420p"
         stream.time_base = Fraction(1) / fps
         stream.codec_context.time_base = Fraction(1) / fps
-        stream.options = {"crf": str(int(crf)), "preset": preset}
+        options = {"crf": str(int(crf)), "preset": preset}
+        options.update({str(k): str(v) for k, v in (codec_options or {}).items()})
+        stream.options = options
         chroma = np.full(2 * (height // 2) * (width // 2), 128, dtype=np.uint8)
         for k in range(n_frames):
             if shake_px > 0:

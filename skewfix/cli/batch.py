@@ -1,0 +1,77 @@
+"""`skewfix batch`: run `fix` over a folder of clips or a clip list (format: `skewfix.batch`)."""
+
+from __future__ import annotations
+
+import os
+from typing import Optional
+
+import typer
+
+from skewfix.cli import app, fail
+from skewfix.errors import UsageProblem
+
+
+def default_workers() -> int:
+    """Half the cores: each clip already keeps a decoder, OpenCV and an encoder busy."""
+    return max(1, (os.cpu_count() or 2) // 2)
+
+
+def _seconds(value: float | None) -> str:
+    return "" if value is None else f"{value:.1f}"
+
+
+def print_summary(outcomes) -> None:
+    """The end-of-batch table on stdout: clip, status, frames, seconds, message."""
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title=None, show_lines=False)
+    for name, justify in (("clip", "left"), ("status", "left"), ("frames", "right"), ("seconds", "right"),
+                          ("message", "left")):
+        table.add_column(name, justify=justify, overflow="fold")
+    for o in outcomes:
+        table.add_row(o.name, o.status, "" if o.frames is None else str(o.frames), _seconds(o.seconds), o.message)
+    Console(width=max(100, Console().width), highlight=False).print(table)
+
+
+@app.command("batch")
+def batch_command(
+    source: str = typer.Argument(..., metavar="FOLDER_OR_LIST",
+                                 help="A folder (every video file in it) or a clip list (see 'skewfix.batch')."),
+    out: str = typer.Option(..., "--out", "-o", help="Folder for the corrected clips (made if missing)."),
+    readout: Optional[str] = typer.Option(None, "--readout", "-r",
+                                          help="Readout for clips whose line gives none (as for fix)."),
+    line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
+    reference_line: Optional[str] = typer.Option(None, "--reference-line", help="middle, top or bottom."),
+    border: Optional[str] = typer.Option(None, "--border", help="edge, black or crop."),
+    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
+    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
+    preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
+    workers: Optional[int] = typer.Option(None, "--workers", "-j",
+                                          help="Clips corrected at once on this machine (default: half the cores)."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler",
+                                            help="Address of a Dask scheduler (tcp://host:8786): one task per clip."),
+    force: bool = typer.Option(False, "--force", help="Correct every clip again, replacing outputs that exist."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No line per finished clip; only the summary."),
+):
+    """Correct many clips: locally in worker processes or on a Dask cluster; reruns skip finished clips."""
+    from skewfix.batch import run_batch
+
+    if workers is not None and workers < 1:
+        raise UsageProblem(f"--workers must be at least 1, not {workers}")
+    if workers is not None and scheduler is not None:
+        raise UsageProblem("--workers and --scheduler exclude each other (the cluster decides)")
+    defaults = {"readout": readout, "line-order": line_order, "reference-line": reference_line,
+                "border": border, "codec": codec, "crf": None if crf is None else str(crf), "preset": preset}
+
+    def announce(outcome):
+        if quiet:
+            return
+        detail = f"{outcome.frames} frames, {_seconds(outcome.seconds)} s" if outcome.status == "done" else outcome.message
+        typer.echo(f"{outcome.status:>7}  {outcome.name}: {detail}", err=True)
+
+    outcomes = run_batch(source, out, defaults, workers or default_workers(), scheduler, force, announce)
+    print_summary(outcomes)
+    failed = sum(o.status == "failed" for o in outcomes)
+    if failed:
+        fail(f"{failed} of {len(outcomes)} clip(s) failed")
