@@ -135,7 +135,9 @@ def split_line(text: str, where: str) -> tuple[list[str], dict[str, str]]:
                 raise UsageProblem(f"{where}: {name} is given twice")
             settings[name] = check_setting(name, value, where)
         elif settings:
-            raise UsageProblem(f"{where}: {word!r} comes after the settings; put INPUT and OUTPUT first")
+            last = next(reversed(settings))
+            raise UsageProblem(f"{where}: {word!r} follows {last}=...; INPUT and OUTPUT come first, "
+                               "and a value with a space needs quotes")
         else:
             paths.append(word)
     if len(paths) > 2:
@@ -338,7 +340,15 @@ def require_distributed():
 
 def connect(address: str):
     """A `distributed.Client` for the scheduler at ``address``, or a one-line error."""
-    Client = require_distributed().Client
+    distributed = require_distributed()
+    from distributed.comm import resolve_address
+
+    try:  # checked first: a Client built on a bad address hangs for its close timeout at exit
+        resolve_address(address)
+    except (ValueError, OSError) as exc:
+        raise UsageProblem(f"--scheduler {address!r} is not a usable address ({_one_line(str(exc))}; "
+                           "expected e.g. tcp://10.0.0.5:8786)") from None
+    Client = distributed.Client
     try:
         return Client(address, timeout=SCHEDULER_TIMEOUT_S, set_as_default=False)
     except Exception as exc:  # noqa: BLE001 - any failure to connect is one line for the user

@@ -75,10 +75,27 @@ def fix_command(
     crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16, visually lossless)."),
     preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input (e.g. 24000/1001)."),
-    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists."),
+    depth: Optional[int] = typer.Option(None, "--depth",
+                                        help="8 or 16 bits for sequence output (default: as the source; "
+                                             "10-bit video goes to 16)."),
+    save_motion: Optional[str] = typer.Option(None, "--save-motion", help="Write the solved motion (JSON)."),
+    save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv",
+                                                  help="Write one row per frame of motion and skew (CSV)."),
+    save_maps: Optional[str] = typer.Option(None, "--save-maps",
+                                            help="Folder for per-frame correct/reskew maps (float TIFF)."),
+    save_matte: Optional[str] = typer.Option(None, "--save-matte",
+                                             help="Pattern (matte.%04d.png) for per-frame mattes of filled pixels."),
+    report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
+    force: bool = typer.Option(False, "--force", help="Replace OUTPUT (a sequence as a whole) and the other "
+                                                      "outputs if they exist."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
-    """Remove rolling-shutter skew (lean, stretch, wobble) from INPUT and write OUTPUT."""
+    """Remove rolling-shutter skew (lean, stretch, wobble) from INPUT and write OUTPUT.
+
+    OUTPUT may be a numbered sequence (plate.%04d.tif, PNG or TIFF): frames are
+    numbered like an input sequence, or from 1 for a video input.
+    """
+    from skewfix.cli.plates import FixDeliverables
     from skewfix.pipeline import FixOptions, fix_clip
 
     if line_order is not None:
@@ -95,10 +112,24 @@ def fix_command(
     options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
                          reference_line=reference_line, border=border, codec=codec, crf=crf,
                          preset=preset, force=force, fps=parse_rate(fps))
-    with TerminalProgress(quiet) as progress:
-        result = fix_clip(input, output, options, progress, readout_resolver=resolver)
+    extras = FixDeliverables(input, output, motion=save_motion, motion_csv=save_motion_csv, maps_dir=save_maps,
+                             matte=save_matte, report=report, reference_line=reference_line, border=border,
+                             force=force, fps=options.fps,
+                             sink_options=dict(codec=codec, crf=crf, preset=preset, depth=depth))
+    extras.check()
+    try:
+        with TerminalProgress(quiet) as progress:
+            result = fix_clip(input, output, options, progress,
+                              on_frame=extras.on_frame if extras.wants_frames else None,
+                              readout_resolver=resolver, sink_factory=extras.sink_factory)
+    except BaseException:
+        extras.discard()
+        raise
+    written = extras.finish(result)
     say = (lambda *_: None) if quiet else (lambda m: typer.echo(m, err=True))
     say(f"readout {result.readout * 1e3:.3f} ms ({result.line_order}, {result.readout_origin})")
     for note in result.notes:
         typer.echo(f"note: {note}", err=True)
     say(f"wrote {result.frames_written} frames to {result.output}")
+    for line in written:
+        say(f"wrote {line}")

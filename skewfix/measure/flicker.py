@@ -480,6 +480,11 @@ def measure_flicker(
     if common:
         notes.append("bands drift between frames: the profile common to all frames "
                      "(wall texture, vignetting, gradient) was removed before fitting")
+        keep = 1.0 - abs(np.mean(np.exp(2j * np.pi * f * (t[used] - t[used][0])))) ** 2
+        if keep < 0.5:
+            notes.append(f"the bands drift little over the clip (only {keep:.0%} of their "
+                         "energy changes between frames): inter-frame compression can bias "
+                         "this by a few tenths of a percent; a longer clip helps")
     else:
         notes.append("bands (nearly) still: a smooth background was fitted per frame; "
                      "texture on the wall can bias this, so use a plain, evenly lit wall")

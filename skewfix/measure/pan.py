@@ -48,6 +48,10 @@ _MIN_TRACKS = 8       # tracks for a pair speed from the tracker
 _MIN_BAND_SCORE = 0.5  # correlation of a band with the middle band
 _MIN_BANDS = 5
 _SIGNIFICANCE = 3.0   # slope / its sigma needed to state a line order
+# Relative floor on the uncertainty for what the frame-to-frame scatter cannot
+# show (compression, the tracker's proxy, optics): the size of the errors in
+# our own synthetic runs (scripts/bench_measure.py), not a published value.
+_SYSTEMATIC_FRACTION = 0.003
 
 
 # ----------------------------------------------------------------------------
@@ -286,8 +290,14 @@ def _speed_band_shifts(path: str, analysis, fps):
 
 def _no_pan_message(speeds, analysis) -> str:
     finite = speeds[np.isfinite(speeds)]
-    seen = (f"the fastest pair moved {np.max(np.abs(finite)) * analysis.info.frame_interval:.1f} px per frame"
-            if finite.size and analysis.info.frame_interval else "no frame pair could be tracked")
+    interval = analysis.info.frame_interval or float(np.median(np.diff(analysis.frame_times)))
+    if not finite.size:
+        seen = "no frame pair could be tracked"
+    else:
+        fastest = float(np.max(np.abs(finite))) * interval
+        seen = f"the picture moved at most {fastest:.1f} px per frame"
+        if fastest >= _MIN_SHIFT_PER_FRAME_PX:
+            seen += f", never at one speed (within {_STEADY_TOLERANCE:.0%}) for long enough"
     hint = ""
     if analysis.info.rotation in (90, 270, -90):
         hint = (" (this clip is stored rotated by 90 degrees: the sensor rows run up and down "
@@ -351,7 +361,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
     sigma_slope = math.sqrt(float(cov[0, 0]))
 
     readout = abs(slope) * height
-    sigma = sigma_slope * height
+    sigma = math.hypot(sigma_slope * height, _SYSTEMATIC_FRACTION * readout)
     if abs(slope) >= _SIGNIFICANCE * sigma_slope:
         order = "top-down" if slope > 0 else "bottom-up"
         notes.append(f"line order {order}: the lean follows the pan direction that way")

@@ -1,0 +1,293 @@
+"""`skewfix measure`: measure a camera mode's readout time from a test clip or the shot itself."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import re
+import tempfile
+from pathlib import Path
+from typing import Optional
+
+import numpy as np
+import typer
+
+from skewfix.cli import app
+from skewfix.cli.fix import choice, parse_rate
+from skewfix.cli.progress import TerminalProgress
+from skewfix.errors import MeasurementRefused, UsageProblem
+from skewfix.rowclock import parse_duration
+
+METHODS = ("auto", "flicker", "pan", "motion")
+
+SAFETY_TEXT = (
+    "Safety: flickering and strobing lights can trigger seizures in people with photosensitive "
+    "epilepsy; warn everyone present before switching a flicker or strobe light on. Mains-powered "
+    "light rigs are for qualified hands: follow your local electrical codes and licensed practice."
+)
+
+HELP = f"""Measure the readout time (first to last row) of the camera mode that shot CLIP.
+
+Methods: 'flicker' for a steady shot of a plain, evenly lit wall under a flickering
+light (give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, or an LED
+driver's rate; shoot at a fast shutter); 'pan' for steady pans across vertical
+edges, ideally one way and back; 'motion' for ordinary footage whose motion
+changes (whip pans that speed up and stop, handheld). 'auto' (the default) tries
+flicker when --light-hz is given, then motion, then pan, and says why the others
+could not measure the clip.
+
+{SAFETY_TEXT}
+"""
+
+_SHUTTER = re.compile(r"^\s*1\s*/\s*([0-9]*\.?[0-9]+)\s*(s)?\s*$")
+
+
+def parse_exposure(text: str | None) -> float | None:
+    """Shutter time: ``1/1000`` (a shutter speed), ``2ms``, ``0.002s``; a bare number is ms."""
+    if text is None:
+        return None
+    match = _SHUTTER.match(text)
+    if match:
+        speed = float(match.group(1))
+        if speed <= 0:
+            raise UsageProblem(f"not an exposure: {text!r}")
+        return 1.0 / speed
+    try:
+        seconds = parse_duration(text)
+    except UsageProblem:
+        raise UsageProblem(f"not an exposure: {text!r} (use e.g. 1/1000, 1ms or 0.001s; "
+                           "a bare number is ms)") from None
+    if seconds <= 0:
+        raise UsageProblem(f"the exposure must be longer than 0: {text!r}")
+    return seconds
+
+
+def frame_ranges(indices) -> str:
+    """``[1, 2, 3, 7, 9, 10]`` -> ``1-3, 7, 9-10``."""
+    ks = sorted({int(k) for k in indices})
+    if not ks:
+        return "none"
+    parts, start, prev = [], ks[0], ks[0]
+    for k in ks[1:] + [None]:
+        if k is not None and k == prev + 1:
+            prev = k
+            continue
+        parts.append(f"{start}-{prev}" if prev > start else f"{start}")
+        if k is not None:
+            start = prev = k
+    return ", ".join(parts)
+
+
+def check_report_path(path: str | None, clip: str, what: str) -> Path | None:
+    """Refuse a report path that is the clip itself, a folder, or in a missing/unwritable folder."""
+    if path is None:
+        return None
+    out = Path(path)
+    if os.path.realpath(out) == os.path.realpath(clip) or (
+            out.exists() and Path(clip).exists() and os.path.samefile(out, clip)):
+        raise UsageProblem(f"{what} {path}: is the clip itself; the input is never overwritten")
+    if out.is_dir():
+        raise UsageProblem(f"{what} {path}: is a folder; give a file name")
+    parent = out.parent if str(out.parent) else Path(".")
+    if not parent.is_dir():
+        raise UsageProblem(f"{what} {path}: folder {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise UsageProblem(f"{what} {path}: folder {parent} is not writable")
+    return out
+
+
+def write_whole(path: Path, write) -> None:
+    """Call ``write(temporary_path)`` for a temporary name beside ``path``, then rename it into place."""
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".partial{path.suffix}", dir=path.parent)
+    os.close(fd)
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def write_json(path: Path, data: dict) -> None:
+    def dump(tmp):
+        with open(tmp, "w", encoding="utf-8") as handle:
+            json.dump(data, handle, indent=2, allow_nan=True)
+            handle.write("\n")
+    write_whole(path, dump)
+
+
+def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):
+    """Row profiles frame by frame (never the frames themselves), then the joint flicker fit."""
+    from skewfix.decode import open_source
+    from skewfix.measure.flicker import measure_flicker, row_profiles_from_luma
+    from skewfix.pipeline import black_levels, expected_frames
+
+    profiles, times = [], []
+    with open_source(clip, fps) as source:
+        info = source.info
+        black = black_levels(info, 1)[0]
+        total = expected_frames(info)
+        for frame in source.frames():
+            profiles.append(row_profiles_from_luma(frame.luma, black_level=black))
+            times.append(frame.time)
+            progress("analyse", len(times), total)
+    if not profiles:
+        from skewfix.errors import InputError
+
+        raise InputError(f"{clip}: no frame could be decoded")
+    times = np.asarray(times)
+    interval = info.frame_interval or (float(np.median(np.diff(times))) if len(times) > 1 else None)
+    if not interval:
+        raise UsageProblem(f"{clip}: the frame rate is not known (give --fps)")
+    return measure_flicker(np.stack(profiles), times, light_hz, interval, exposure_s), info
+
+
+class _Measurer:
+    """Runs the methods on one clip, sharing one analysis pass between motion and pan."""
+
+    def __init__(self, clip, fps, light_hz, exposure_s, progress):
+        self.clip, self.fps, self.light_hz, self.exposure_s = clip, fps, light_hz, exposure_s
+        self.progress = progress
+        self.analysis = None
+        self.info = None
+
+    def _analysis(self):
+        if self.analysis is None:
+            from skewfix.pipeline import analyse
+
+            self.analysis = analyse(self.clip, self.fps, progress=self.progress)
+            self.info = self.analysis.info
+        return self.analysis
+
+    def run(self, method: str):
+        if method == "flicker":
+            estimate, self.info = run_flicker(self.clip, self.light_hz, self.exposure_s, self.fps,
+                                              self.progress)
+            return estimate
+        if method == "pan":
+            from skewfix.measure.pan import measure_pan
+
+            return measure_pan(self.clip, self._analysis(), self.fps)
+        try:
+            from skewfix.measure.selfcal import measure_motion
+        except ModuleNotFoundError as exc:
+            if exc.name != "skewfix.measure.selfcal":
+                raise
+            raise MeasurementRefused("the motion method is not available in this build") from None
+        return measure_motion(self._analysis(), line_order=None)
+
+
+def plot_estimate(estimate, path: Path) -> None:
+    if estimate.method == "flicker":
+        from skewfix.measure.flicker import plot_flicker as plot
+    elif estimate.method == "pan":
+        from skewfix.measure.pan import plot_pan as plot
+    else:
+        from skewfix.measure.plots import plot_residual_curve as plot
+    write_whole(path, lambda tmp: plot(estimate, tmp))
+
+
+def summary_lines(estimate) -> list[str]:
+    ms = estimate.readout_s * 1e3
+    sigma = estimate.uncertainty_s * 1e3
+    lines = [f"readout       {ms:.3f} ms ± {sigma:.3f} ms (one sigma)"]
+    lines.append(f"line delay    {estimate.line_delay_s * 1e6:.4f} µs per row over {estimate.height} rows")
+    if estimate.frame_interval and math.isfinite(estimate.frame_interval):
+        lines.append(f"frame share   {estimate.readout_fraction:.1%} of the "
+                     f"{estimate.frame_interval * 1e3:.3f} ms frame interval")
+    lines.append(f"line order    {estimate.line_order}")
+    lines.append(f"method        {estimate.method}")
+    lines.append(f"frames        {frame_ranges(estimate.frames_used)} ({len(estimate.frames_used)} in all)")
+    return lines
+
+
+@app.command("measure", help=HELP)
+def measure_command(
+    clip: str = typer.Argument(..., help="Test clip or shot (or a numbered image sequence with --fps)."),
+    method: str = typer.Option("auto", "--method", "-m", help="auto, flicker, pan or motion."),
+    light_hz: Optional[float] = typer.Option(
+        None, "--light-hz",
+        help="Flicker frequency of the light's intensity, Hz (100/120 for mains at 50/60 Hz). "
+             "Flickering lights can trigger photosensitive seizures."),
+    json_path: Optional[str] = typer.Option(None, "--json", help="Also write the result as JSON here."),
+    plot: Optional[str] = typer.Option(None, "--plot", help="Write a PNG to check the result by eye."),
+    save_camera: Optional[str] = typer.Option(None, "--save-camera",
+                                              help="Save the result as a camera of this name "
+                                                   "(for fix --readout NAME)."),
+    exposure: Optional[str] = typer.Option(None, "--exposure",
+                                           help="Shutter time of the clip (1/1000, 1ms), to explain "
+                                                "weak flicker bands."),
+    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Only the result line; no progress or notes."),
+):
+    choice(method, METHODS, "--method")
+    if light_hz is not None and not (math.isfinite(light_hz) and light_hz > 0):
+        raise UsageProblem(f"--light-hz must be a positive frequency, not {light_hz:g}")
+    if method == "flicker" and light_hz is None:
+        raise UsageProblem("--method flicker needs --light-hz (100 or 120 for mains lighting on "
+                           "50 or 60 Hz, or the LED driver's rate)")
+    exposure_s = parse_exposure(exposure)
+    rate = parse_rate(fps)
+    json_out = check_report_path(json_path, clip, "--json")
+    plot_out = check_report_path(plot, clip, "--plot")
+    if json_out is not None and plot_out is not None and os.path.realpath(json_out) == os.path.realpath(plot_out):
+        raise UsageProblem("--json and --plot name the same file")
+    if save_camera is not None:
+        from skewfix.cameras import check_name
+
+        save_camera = check_name(save_camera)
+
+    say = (lambda *_: None) if quiet else (lambda m: typer.echo(m, err=True))
+    if method in ("flicker", "auto") and light_hz is not None and not quiet:
+        say("note: " + SAFETY_TEXT)
+    if method == "auto":
+        order = (["flicker"] if light_hz is not None else []) + ["motion", "pan"]
+    else:
+        order = [method]
+        if light_hz is not None and method != "flicker":
+            say(f"note: --light-hz is only used by the flicker method, not {method}")
+
+    refused: list[tuple[str, str]] = []
+    estimate = None
+    with TerminalProgress(quiet) as progress:
+        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress)
+        for name in order:
+            try:
+                estimate = measurer.run(name)
+                break
+            except MeasurementRefused as exc:
+                if method != "auto":
+                    raise
+                refused.append((name, str(exc)))
+    if estimate is None:
+        raise MeasurementRefused("no method could measure this clip: "
+                                 + "; ".join(f"{name}: {why}" for name, why in refused))
+
+    if quiet:
+        typer.echo(f"readout {estimate.readout_s * 1e3:.3f} ms ± {estimate.uncertainty_s * 1e3:.3f} ms "
+                   f"({estimate.line_order}, {estimate.method})")
+    else:
+        for line in summary_lines(estimate):
+            typer.echo(line)
+        if method == "auto":
+            tried = "; ".join(f"{name} could not: {why}" for name, why in refused)
+            say(f"note: auto chose {estimate.method}" + (f" ({tried})" if tried else ""))
+        for note in estimate.notes:
+            say(f"note: {note}")
+
+    if json_out is not None:
+        write_json(json_out, estimate.to_json_dict())
+        say(f"wrote {json_out}")
+    if plot_out is not None:
+        plot_estimate(estimate, plot_out)
+        say(f"wrote {plot_out}")
+    if save_camera is not None:
+        from skewfix.cameras import camera_path, save_camera as save
+
+        replaced = camera_path(save_camera).exists()
+        where = save(save_camera, estimate, measurer.info, clip=Path(clip).name)
+        say(f"{'replaced' if replaced else 'saved'} camera '{save_camera}' in {where}")

@@ -1,0 +1,366 @@
+"""Plate deliverables: `skewfix reskew`, `skewfix preview`, and the extra outputs of `fix`.
+
+* ``reskew`` puts the rolling shutter described by a saved motion file back
+  onto a clean clip or sequence (CG, a corrected plate) of the same size and
+  frame count.
+* ``preview`` writes one before/after still, rendering only that frame.
+* `FixDeliverables` writes what ``fix --save-motion/--save-motion-csv/
+  --save-maps/--save-matte/--report`` ask for, each whole or not at all.
+
+Warp maps (``--save-maps DIR``) are 32-bit float TIFFs, one pair per frame:
+``correct_map.NNNN.tif`` (samples the input to give the corrected frame) and
+``reskew_map.NNNN.tif`` (samples a clean frame to give the rolling-shutter
+one). Each pixel holds the *absolute source position* to read, in pixels of the
+full frame with the origin at the top-left and pixel centres at integer
+coordinates (the centre of the top-left pixel is (0, 0)): sample 0 (red) is x,
+sample 1 (green) is y, and sample 2 (blue) is 0, because OpenCV writes no
+two-channel TIFF. Read with ``cv2.imread(..., IMREAD_UNCHANGED)`` the order is
+OpenCV's BGR, so x is ``[..., 2]`` and y is ``[..., 1]``; then
+``cv2.remap(frame, x, y, cv2.INTER_CUBIC, borderMode=cv2.BORDER_REPLICATE)``
+reproduces the correction. Maps and mattes are numbered like the output.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+from typing import Optional
+
+import numpy as np
+import typer
+
+from skewfix.cli import app
+from skewfix.cli.progress import TerminalProgress
+from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
+from skewfix.sequence import (VIDEO_FIRST_NUMBER, FramePattern, StagedSequence, check_sequence_output,
+                              is_pattern, open_sink, parse_pattern, planes_to_rgb)
+
+MAP_NAMES = ("correct_map", "reskew_map")
+RESKEW_BORDERS = ("edge", "black")
+
+
+# --------------------------------------------------------------------------
+# Helpers shared by the commands
+# --------------------------------------------------------------------------
+
+def decoded_frame_at(path: str, fps, index: int):
+    """Decode frames of ``path`` up to ``index`` and return that `DecodedFrame`."""
+    from skewfix.decode import open_source
+
+    with open_source(path, fps) as source:
+        for frame in source.frames():
+            if frame.index == index:
+                return frame
+    raise InputError(f"{path}: has no frame {index}")
+
+
+def still_png(before_rgb: np.ndarray, after_rgb: np.ndarray, labels=("as shot", "corrected")) -> bytes:
+    """The before/after panel of `skewfix.preview.before_after` as PNG bytes."""
+    from skewfix.preview import before_after
+
+    with tempfile.TemporaryDirectory(prefix="skewfix-still-") as folder:
+        path = Path(folder) / "still.png"
+        before_after(before_rgb, after_rgb, str(path), labels)
+        return path.read_bytes()
+
+
+def check_distinct_outputs(input_path: str, paths: dict[str, str | None]) -> None:
+    """Refuse two outputs with the same name, or an output that is the input."""
+    seen = {os.path.realpath(input_path): "INPUT"}
+    for option, path in paths.items():
+        if path is None:
+            continue
+        real = os.path.realpath(path)
+        if real in seen:
+            raise UsageProblem(f"{option} {path}: is the same file as {seen[real]}")
+        seen[real] = option
+
+
+def output_first_number(info) -> int:
+    """Frame numbering of the outputs: the input sequence's first number, else 1."""
+    return info.first_number if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
+
+
+def count_frames(path: str, info) -> int:
+    """Frames in a clip or sequence: the stream's own count, else its video packets."""
+    if info.frame_count:
+        return int(info.frame_count)
+    import av
+
+    with av.open(path) as container:
+        stream = container.streams.video[0]
+        return sum(1 for packet in container.demux(stream) if packet.size)
+
+
+def map_image(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
+    """A map as the 3-channel float32 image OpenCV writes with samples (x, y, 0) in file order."""
+    return np.dstack([np.zeros_like(map_x), map_y, map_x]).astype(np.float32)
+
+
+# --------------------------------------------------------------------------
+# fix: the extra deliverables
+# --------------------------------------------------------------------------
+
+class FixDeliverables:
+    """Motion file, CSV, warp maps, matte and report for one `fix` run.
+
+    ``check()`` refuses bad paths before any work; ``sink_factory`` opens the
+    output (image sequence or clip) and the staged map/matte sequences once the
+    clip is known; ``on_frame`` is the pipeline's per-frame callback;
+    ``finish(result)`` writes the rest; ``discard()`` removes everything staged.
+    """
+
+    def __init__(self, input_path: str, output: str, *, motion=None, motion_csv=None, maps_dir=None,
+                 matte=None, report=None, reference_line="middle", border="edge", force=False, fps=None,
+                 sink_options: dict | None = None):
+        self.input, self.output = input_path, output
+        self.motion, self.motion_csv, self.maps_dir, self.matte, self.report = motion, motion_csv, maps_dir, matte, report
+        self.reference_line, self.border, self.force, self.fps = reference_line, border, force, fps
+        self.sink_options = sink_options or {}
+        self.info = None
+        self._maps: dict[str, StagedSequence] = {}
+        self._matte: StagedSequence | None = None
+        self._matte_pattern: FramePattern | None = None
+        self._still = (-1.0, None, None)  # (skew size, frame index, planes)
+
+    @property
+    def wants_frames(self) -> bool:
+        return bool(self.maps_dir or self.matte or self.report)
+
+    def check(self) -> None:
+        from skewfix.motionfile import check_new_file
+
+        if is_pattern(self.output):
+            check_sequence_output(self.input, self.output, self.force)
+        elif self.sink_options.get("depth") is not None:
+            raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
+        check_distinct_outputs(self.input, {"OUTPUT": self.output, "--save-motion": self.motion,
+                                            "--save-motion-csv": self.motion_csv, "--report": self.report})
+        for option, path in (("--save-motion", self.motion), ("--save-motion-csv", self.motion_csv),
+                             ("--report", self.report)):
+            if path is not None:
+                check_new_file(path, self.force, option)
+        if self.matte is not None:
+            if not is_pattern(self.matte):
+                raise UsageProblem(f"--save-matte {self.matte}: give a numbered pattern like matte.%04d.png")
+            self._matte_pattern = check_sequence_output(self.input, self.matte, self.force)
+            if is_pattern(self.output) and parse_pattern(self.output).same_sequence(self._matte_pattern):
+                raise UsageProblem(f"--save-matte {self.matte}: is the same sequence as OUTPUT")
+        if self.maps_dir is not None:
+            folder = Path(self.maps_dir)
+            if folder.exists() and not folder.is_dir():
+                raise UsageProblem(f"--save-maps {self.maps_dir}: is a file; give a folder")
+            if not (folder.parent if str(folder.parent) else Path(".")).is_dir():
+                raise UsageProblem(f"--save-maps {self.maps_dir}: folder {folder.parent} does not exist")
+
+    def _map_pattern(self, name: str) -> FramePattern:
+        return parse_pattern(str(Path(self.maps_dir) / f"{name}.%04d.tif"))
+
+    def sink_factory(self, info):
+        self.info = info
+        first = output_first_number(info)
+        try:
+            if self.maps_dir is not None:
+                for name in MAP_NAMES:
+                    self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force, create_folder=True)
+            if self._matte_pattern is not None:
+                self._matte = StagedSequence(self._matte_pattern, first, self.force)
+            return open_sink(self.input, self.output, info, force=self.force, **self.sink_options)
+        except BaseException:
+            self.discard()
+            raise
+
+    def on_frame(self, k: int, wm, planes) -> None:
+        from skewfix.motionfile import map_skew
+        from skewfix.warp import outside_matte
+
+        if self.maps_dir is not None or self._matte is not None:
+            map_x, map_y = wm.full(self.info.width, self.info.height)
+            if self.maps_dir is not None:
+                self._maps["correct_map"].write(k, map_image(map_x, map_y))
+            if self._matte is not None:
+                matte = outside_matte(map_x, map_y).astype(np.uint8) * 255
+                self._matte.write(k, matte)
+        if self.report is not None:
+            size = float(np.sum(np.abs(map_skew(wm))))
+            if size > self._still[0]:
+                self._still = (size, k, [np.array(p) for p in planes])
+
+    def finish(self, result) -> list[str]:
+        """Write the motion, CSV, maps, matte and report; returns lines saying what was written."""
+        from skewfix.motionfile import save_motion, save_motion_csv, skew_per_frame
+        from skewfix.warp import reskew_map
+
+        said = []
+        try:
+            if self.motion is not None:
+                save_motion(self.motion, result.model, result.clock, self.reference_line, result.info)
+                said.append(f"motion: {self.motion}")
+            if self.motion_csv is not None:
+                save_motion_csv(self.motion_csv, result.model, result.clock, self.reference_line)
+                said.append(f"motion table: {self.motion_csv}")
+            if self._maps:
+                w, h = result.info.width, result.info.height
+                for k in range(len(result.clock.frame_times)):
+                    wm = reskew_map(result.model, result.clock, k, self.reference_line)
+                    self._maps["reskew_map"].write(k, map_image(*wm.full(w, h)))
+                for staged in self._maps.values():
+                    staged.commit()
+                said.append(f"warp maps: {self.maps_dir} ({len(result.clock.frame_times)} pairs)")
+            if self._matte is not None:
+                self._matte.commit()
+                said.append(f"matte: {self.matte}")
+            if self.report is not None:
+                self._write_report(result, skew_per_frame(result.model, result.clock, self.reference_line))
+                said.append(f"report: {self.report}")
+        except BaseException:
+            self.discard()
+            raise
+        return said
+
+    def _write_report(self, result, skew) -> None:
+        from skewfix.report import ReportContent, write_report
+
+        content = ReportContent(self.reference_line, self.border, skew,
+                                outputs=[(opt, p) for opt, p in (("motion file", self.motion),
+                                                                 ("motion table", self.motion_csv),
+                                                                 ("warp maps", self.maps_dir),
+                                                                 ("matte", self.matte)) if p])
+        _, k, after = self._still
+        if k is not None:
+            before = decoded_frame_at(self.input, self.fps, k)
+            content.still_png = still_png(planes_to_rgb(before.planes, before.pix_fmt, result.info, 8),
+                                          planes_to_rgb(after, before.pix_fmt, result.info, 8))
+            content.still_frame = k
+        write_report(self.report, result, content)
+
+    def discard(self) -> None:
+        for staged in list(self._maps.values()) + ([self._matte] if self._matte else []):
+            staged.discard()
+
+
+# --------------------------------------------------------------------------
+# reskew
+# --------------------------------------------------------------------------
+
+@app.command("reskew")
+def reskew_command(
+    input: str = typer.Argument(..., help="Clean clip or numbered sequence (CG, a corrected plate)."),
+    output: str = typer.Argument(..., help="Where to write the clip or sequence with the rolling shutter put back."),
+    motion: str = typer.Option(..., "--motion", "-m", help="Motion file written by 'fix --save-motion'."),
+    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 for video output "
+                                                               "(default: as the input)."),
+    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
+    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of a sequence input "
+                                                           "(default: the motion file's)."),
+    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for sequence output "
+                                                               "(default: as the input; deeper than 8 goes to 16)."),
+    border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge or black."),
+    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+):
+    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
+    from skewfix.cli.fix import choice, parse_rate
+    from skewfix.decode import open_source
+    from skewfix.encode import CODECS, check_output_path
+    from skewfix.motionfile import load_motion
+    from skewfix.pipeline import FrameWarper, RenderSettings, render
+
+    choice(border, RESKEW_BORDERS, "--border")
+    if codec is not None:
+        choice(codec.lower(), tuple(CODECS), "--codec")
+    if crf is not None and not 0 <= crf <= 51:
+        raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
+    model, clock, reference_line, meta = load_motion(motion)
+    check_output_path(input, output, force)
+    if is_pattern(output):
+        check_sequence_output(input, output, force)
+    check_distinct_outputs(input, {"OUTPUT": output, "--motion": motion})
+    rate = parse_rate(fps) or meta["frame_rate"]
+    if is_pattern(input) and rate is None:
+        raise UsageProblem(f"{input}: give the sequence's frame rate with --fps (the motion file has none)")
+    with open_source(input, rate) as source:
+        info = source.info
+    if (info.width, info.height) != (model.width, model.height):
+        raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
+                         f"{model.width}x{model.height} frames; reskew needs the same size")
+    expected = len(clock.frame_times)
+    found = count_frames(input, info)
+    if found != expected:
+        raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
+                         "reskew needs the same frame count")
+    warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
+    sink = open_sink(input, output, info, codec=codec, crf=crf, depth=depth, force=force)
+    try:
+        with TerminalProgress(quiet) as progress:
+            written = render(input, sink, warper, rate, progress)
+        if written != expected:
+            raise RuntimeProblem(f"{input}: {written} frames could be read of {expected}; nothing was written")
+        sink.finish()
+    except BaseException:
+        sink.abort()
+        raise
+    for note in sink.notes:
+        typer.echo(f"note: {note}", err=True)
+    if not quiet:
+        typer.echo(f"rolling shutter put back ({clock.readout * 1e3:.3f} ms, {clock.line_order}); "
+                   f"wrote {written} frames to {output}", err=True)
+
+
+# --------------------------------------------------------------------------
+# preview
+# --------------------------------------------------------------------------
+
+@app.command("preview")
+def preview_command(
+    clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
+    readout: str = typer.Option(..., "--readout", "-r", help="Readout time (18.5ms, 0.0185s, 18500us), "
+                                                              "'auto', or a saved camera's name."),
+    frame: int = typer.Option(0, "--frame", "-n", help="Frame to show, counted from 0 (for a sequence: "
+                                                        "from its first file)."),
+    out: str = typer.Option(..., "--out", "-o", help="PNG file for the before/after still."),
+    line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
+    reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
+    border: str = typer.Option("edge", "--border", help="edge, black or crop."),
+    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    force: bool = typer.Option(False, "--force", help="Replace OUT if it exists."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+):
+    """Write a before/after still of one frame, with straight reference lines over both halves."""
+    from skewfix.cli.fix import choice, parse_rate, readout_plan
+    from skewfix.motionfile import check_new_file, write_whole
+    from skewfix.pipeline import FrameWarper, RenderSettings, analyse, solve
+    from skewfix.warp import BORDERS
+
+    if line_order is not None:
+        choice(line_order, LINE_ORDERS, "--line-order")
+    choice(reference_line, REFERENCE_LINES, "--reference-line")
+    choice(border, BORDERS, "--border")
+    if Path(out).suffix.lower() != ".png":
+        raise UsageProblem(f"--out {out}: the still is written as PNG; give a .png name")
+    if frame < 0:
+        raise UsageProblem(f"--frame must be 0 or more, not {frame}")
+    check_new_file(out, force, "--out")
+    check_distinct_outputs(clip, {"--out": out})
+    rate = parse_rate(fps)
+    seconds, order, _origin, resolver = readout_plan(readout, line_order)
+    with TerminalProgress(quiet) as progress:
+        analysis = analyse(clip, rate, progress=progress)
+    if frame >= analysis.n_frames:
+        raise InputError(f"{clip}: has {analysis.n_frames} frames (0 to {analysis.n_frames - 1}); "
+                         f"there is no frame {frame}")
+    if resolver is not None:
+        seconds, order, _origin = resolver(analysis)
+    clock, model = solve(analysis, seconds, order)
+    warper = FrameWarper(model, clock, RenderSettings(reference_line, border), analysis.info)
+    before = decoded_frame_at(clip, rate, frame)
+    after, _ = warper.apply(frame, before.planes, before.subsampling)
+    info = analysis.info
+    png = still_png(planes_to_rgb(before.planes, before.pix_fmt, info, 8),
+                    planes_to_rgb(after, before.pix_fmt, info, 8))
+    write_whole(out, png)
+    if not quiet:
+        typer.echo(f"wrote {out} (frame {frame}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
+                   err=True)

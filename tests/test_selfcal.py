@@ -1,0 +1,45 @@
+"""Self-calibration of the readout from a clip's own motion."""
+
+from fractions import Fraction
+
+import pytest
+
+from skewfix.errors import MeasurementRefused
+from skewfix.measure.selfcal import measure_motion
+from skewfix.pipeline import analyse
+from skewfix.synth.paths import SteadyPan, Still, WhipPan
+from skewfix.synth.shutter import render_clip
+
+W, H = 480, 270
+
+
+def clip(tmp_path, panorama, camera, readout, order="top-down", rate=Fraction(25), n=24):
+    path = tmp_path / "c.mp4"
+    render_clip(path, panorama, camera, W, H, rate, n, readout, order, origin=(W * 0.3, 20))
+    return analyse(str(path))
+
+
+def whip(rate):
+    return WhipPan(peak_px_s=90 * float(rate), centre_s=12 / float(rate), duration_s=16 / float(rate))
+
+
+@pytest.mark.parametrize("order", ["top-down", "bottom-up"])
+def test_whip_pan_reveals_readout_and_order(tmp_path, panorama, order):
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020, order))
+    assert est.readout_s == pytest.approx(0.020, rel=0.05)  # issue 3 target: within 5 %
+    assert est.line_order == order
+    assert 0 < est.uncertainty_s < 0.002
+
+
+def test_global_shutter_reports_zero(tmp_path, panorama):
+    # A global shutter reads every row at one instant (fact of the trade): readout 0.
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.0))
+    assert est.readout_s < 0.001
+    assert est.line_order == "undetermined"
+
+
+@pytest.mark.parametrize("camera", [SteadyPan(vx_px_s=900.0), Still()])
+def test_steady_motion_is_refused(tmp_path, panorama, camera):
+    # Constant velocity shifts all rows alike whatever the readout (DESIGN.md; common practice).
+    with pytest.raises(MeasurementRefused, match="too steady"):
+        measure_motion(clip(tmp_path, panorama, camera, 0.02))
