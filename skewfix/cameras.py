@@ -47,7 +47,6 @@ from __future__ import annotations
 import math
 import os
 import re
-import tempfile
 from dataclasses import dataclass, field
 from datetime import datetime
 from fractions import Fraction
@@ -237,15 +236,25 @@ def format_camera(camera: SavedCamera) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_text_whole(path: Path, text: str) -> None:
-    """Write ``text`` to a temporary name beside ``path``, then rename it into place."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=".partial", dir=path.parent)
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def write_whole(path: Path, write) -> None:
+    """Call ``write(temporary_name)`` for a hidden name beside ``path``, then rename it into place.
+
+    The file appears whole or not at all, with the usual permissions (not the
+    private ones of a temporary file).
+    """
+    from skewfix.encode import partial_path
+
+    path = Path(path)
+    tmp = partial_path(path)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
+        write(str(tmp))
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -253,6 +262,19 @@ def write_text_whole(path: Path, text: str) -> None:
         except OSError:
             pass
         raise
+
+
+def write_text_whole(path: Path, text: str) -> None:
+    """Write ``text`` whole (temporary name, flush to disk, rename), creating the folder."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+
+    def write(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="\n") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+
+    write_whole(path, write)
 
 
 def save_camera(name: str, estimate, info, clip: str | None = None) -> Path:

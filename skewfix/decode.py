@@ -145,11 +145,15 @@ class VideoSource:
         try:
             self._container = av.open(self.path, "r")
         except Exception as exc:  # av.error.* subclasses differ across versions
+            if _mp4_index_missing(self.path):
+                raise InputError(f"{self.path}: an MP4/MOV file without its index (moov box), which is written "
+                                 "last: the file was probably cut short (copied only in part?); copy it again "
+                                 "from the card") from None
             raise InputError(f"{self.path}: not a readable video file ({_short(exc)})") from None
         videos = [s for s in self._container.streams if s.type == "video" and s.codec_context is not None]
         if not videos:
+            audio = any(s.type == "audio" for s in self._container.streams)  # before close() empties it
             self._container.close()
-            audio = any(s.type == "audio" for s in self._container.streams)
             what = "holds audio but no video" if audio else "holds no video stream"
             raise InputError(f"{self.path}: {what}")
         self.stream = videos[0]
@@ -206,6 +210,19 @@ class VideoSource:
     def __exit__(self, *exc):
         self.close()
 
+    def read_rotation(self) -> int:
+        """Display rotation (degrees) from the first frame's display matrix, without
+        disturbing this source (a second, short-lived demuxer reads one frame)."""
+        import av
+
+        try:
+            with av.open(self.path) as c:
+                for frame in c.decode(video=0):
+                    return int(getattr(frame, "rotation", 0) or 0) % 360
+        except Exception:
+            return self.info.rotation
+        return self.info.rotation
+
     def _convert(self, frame):
         if not _is_remappable(frame.format):
             depth = max((c.bits for c in frame.format.components), default=8)
@@ -216,43 +233,61 @@ class VideoSource:
     def demux(self, copy_streams: bool = False) -> Iterator[tuple[str, object]]:
         """Yield ("frame", DecodedFrame) and, if ``copy_streams``, ("packet", av.Packet).
 
-        Decode errors in single packets are counted (``lost_frames``) and skipped,
-        so a truncated or partly corrupt file yields every decodable frame.
+        Decode errors in single packets are skipped, so a truncated or partly
+        corrupt file yields every decodable frame; once the whole file has been
+        read, ``lost_frames`` counts the frames it promised but did not deliver
+        and ``decode_errors`` says where they went missing (`FrameLossCounter`).
         """
         import av
 
-        self.stream.thread_type = "AUTO"
+        # Slice threads only: FFmpeg's frame threads drop the frames decoded just
+        # before a damaged packet and swallow its error, so losses would go unseen.
+        self.stream.thread_type = "SLICE"
         streams = list(self._container.streams) if copy_streams else [self.stream]
         index = 0
         t0 = None
         tb = self.stream.time_base
-        try:
-            packets = self._container.demux(*streams)
-            while True:
-                try:
-                    packet = next(packets)
-                except StopIteration:
-                    break
-                except av.error.FFmpegError as exc:
-                    self.decode_errors.append(f"demux stopped after frame {index}: {_short(exc)}")
-                    break
-                if packet.stream.index != self.stream.index:
-                    if packet.dts is not None:
-                        yield "packet", packet
-                    continue
-                try:
-                    frames = packet.decode()
-                except av.error.FFmpegError as exc:
-                    self.lost_frames += 1
-                    self.decode_errors.append(f"undecodable packet near frame {index}: {_short(exc)}")
-                    continue
-                for frame in frames:
-                    yield "frame", self._wrap(frame, index, tb, t0)
-                    if t0 is None:
-                        t0 = self._pts_time(frame, tb)
-                    index += 1
-        finally:
-            pass
+        losses = FrameLossCounter(self.info.frame_interval, self.info.frame_count, *self._end_time())
+        packets = self._container.demux(*streams)
+        while True:
+            try:
+                packet = next(packets)
+            except StopIteration:
+                break
+            except av.error.FFmpegError as exc:
+                self.decode_errors.append(f"reading stopped after frame {index}: {_short(exc)}")
+                break
+            if packet.stream.index != self.stream.index:
+                if packet.dts is not None:
+                    yield "packet", packet
+                continue
+            if packet.size:
+                losses.packets += 1
+            try:
+                frames = packet.decode()
+            except av.error.FFmpegError as exc:
+                losses.failed += 1
+                if losses.failed == 1:
+                    first_error = f"first decoder error near frame {index}: {_short(exc)}"
+                continue
+            for frame in frames:
+                pts_time = self._pts_time(frame, tb)
+                yield "frame", self._wrap(frame, index, tb, t0)
+                if t0 is None:
+                    t0 = pts_time
+                losses.frame(None if pts_time is None else float(pts_time))
+                index += 1
+        self.lost_frames, where = losses.report()
+        self.decode_errors[:0] = where + ([first_error] if losses.failed else [])
+
+    def _end_time(self) -> tuple[float | None, bool]:
+        """When the file says the picture ends (seconds) and whether that is the video's own figure."""
+        stream, container = self.stream, self._container
+        if stream.duration is not None and stream.time_base:
+            return float((Fraction(stream.start_time or 0) + stream.duration) * Fraction(stream.time_base)), True
+        if container.duration:
+            return ((container.start_time or 0) + container.duration) / 1e6, False
+        return None, False
 
     @staticmethod
     def _pts_time(frame, tb):
@@ -260,6 +295,10 @@ class VideoSource:
         return None if pts is None else Fraction(pts) * Fraction(tb)
 
     def _wrap(self, frame, index, tb, t0) -> DecodedFrame:
+        if index == 0:
+            # display rotation lives in the frame's side data (display matrix);
+            # rows stay in the *stored* orientation, where the sensor read them
+            self.info.rotation = int(getattr(frame, "rotation", 0) or 0) % 360 or self.info.rotation
         t = self._pts_time(frame, tb)
         if t is None:
             rate = self.info.rate or Fraction(25)
@@ -274,6 +313,85 @@ class VideoSource:
         for kind, item in self.demux(copy_streams=False):
             if kind == "frame":
                 yield item
+
+
+def _mp4_index_missing(path: str) -> bool:
+    """True for an ISO media file (MP4/MOV) whose top-level boxes hold data but no ``moov`` (ISO/IEC 14496-12)."""
+    seen = set()
+    size = os.path.getsize(path)
+    with open(path, "rb") as fh:
+        offset = 0
+        while offset + 8 <= size:
+            fh.seek(offset)
+            header = fh.read(16)
+            length, kind = int.from_bytes(header[:4], "big"), header[4:8]
+            if length == 1 and len(header) == 16:
+                length = int.from_bytes(header[8:16], "big")
+            if not kind.isalnum():  # not a box header: not an ISO media file
+                break
+            seen.add(kind)
+            if length < 8:
+                break
+            offset += length
+    return b"ftyp" in seen and b"mdat" in seen and b"moov" not in seen
+
+
+class FrameLossCounter:
+    """Counts the frames a damaged file promised but did not deliver, and says where.
+
+    Evidence of loss is a packet that failed to decode or gave no picture, fewer
+    frames than the file's own frame count, or a picture that stops well before
+    the file's stated end. Only with such evidence are gaps in the timestamps
+    (over 1.5 frame intervals) reported as places where frames went missing, so
+    a variable frame rate on its own never reads as damage.
+    """
+
+    CONTAINER_SLACK_S = 0.5  # audio may outlast the picture when only the file's duration is known
+
+    def __init__(self, interval: float | None, listed: int | None, end: float | None, end_is_video: bool):
+        self.interval, self.listed, self.end, self.end_is_video = interval, listed, end, end_is_video
+        self.packets = self.failed = self.frames = 0
+        self.first = self.last = None
+        self.gaps: list[tuple[int, float, int]] = []  # (frame before the gap, its time, frames missing)
+
+    def frame(self, time: float | None) -> None:
+        if time is not None:
+            step = None if self.last is None else time - self.last
+            if step is not None and self.interval and step > 1.5 * self.interval:
+                self.gaps.append((self.frames - 1, self.last - self.first, round(step / self.interval) - 1))
+            self.first = time if self.first is None else self.first
+            self.last = time
+        self.frames += 1
+
+    def _missing_at_end(self, in_gaps: int) -> int:
+        if self.listed:
+            return max(self.listed - self.frames - in_gaps, 0)
+        if self.end is None or self.last is None or not self.interval:
+            return 0
+        uncovered = self.end - self.last
+        if not self.end_is_video and uncovered < self.CONTAINER_SLACK_S:
+            return 0
+        return max(round(uncovered / self.interval) - 1, 0)
+
+    def report(self) -> tuple[int, list[str]]:
+        """(frames lost, one line per place they went missing)."""
+        if not self.frames:
+            return 0, []
+        in_gaps = sum(n for _, _, n in self.gaps)
+        at_end = self._missing_at_end(in_gaps)
+        undelivered = max(self.packets - self.frames, self.failed)
+        if not (undelivered or at_end or (self.listed and self.listed > self.frames)):
+            return 0, []
+        where = [f"{n} frame(s) missing after frame {k} ({t:.3f} s)" for k, t, n in self.gaps]
+        if at_end:
+            told = f"of the {self.listed} the file lists" if self.listed else \
+                f"but the file runs to {self.end - self.first:.3f} s"
+            where.append(f"{at_end} frame(s) missing at the end: the picture stops after frame {self.frames - 1} "
+                         f"({self.last - self.first:.3f} s) {told} (a truncated file?)")
+        lost = max(in_gaps + at_end, undelivered)
+        if lost > in_gaps + at_end:
+            where.append(f"{lost - in_gaps - at_end} packet(s) gave no picture")
+        return lost, where
 
 
 def _short(exc: Exception) -> str:

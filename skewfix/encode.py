@@ -77,7 +77,14 @@ def partial_path(output: Path) -> Path:
     """A hidden temporary name beside OUTPUT that keeps its extension."""
     fd, name = tempfile.mkstemp(prefix=f".{output.stem}.", suffix=f".partial{output.suffix}", dir=output.parent)
     os.close(fd)
+    os.chmod(name, 0o666 & ~_umask())  # mkstemp makes it owner-only; OUTPUT gets the usual mode
     return Path(name)
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 class VideoSink:
@@ -157,8 +164,12 @@ class VideoSink:
         self.stream = stream
 
     def _set_rotation(self, stream, degrees):
-        # FFmpeg's mov/mp4 muxer honours the legacy "rotate" tag on the stream.
-        stream.metadata["rotate"] = str(degrees)
+        """Carry the display rotation over (the pixels stay in stored orientation)."""
+        if hasattr(stream, "set_display_rotation"):
+            stream.set_display_rotation(degrees)
+        else:  # older PyAV: the legacy tag, honoured by FFmpeg's mov muxer
+            stream.metadata["rotate"] = str(degrees)
+            self.notes.append("this PyAV cannot set a display matrix; rotation written as a legacy tag")
 
     def _add_copies(self, source):
         for s in source.streams:

@@ -94,6 +94,9 @@ def write_whole(path: str | os.PathLike, data: str | bytes) -> Path:
     try:
         with open(tmp, "wb") as fh:
             fh.write(data.encode("utf-8") if isinstance(data, str) else data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # the temporary name was private (0600); give the usual mode
         os.replace(tmp, target)
     except BaseException:
         tmp.unlink(missing_ok=True)
@@ -168,15 +171,12 @@ def save_motion(path: str | os.PathLike, model: MotionModel, clock: RowClock, re
 
 
 def map_skew(wm: WarpMap) -> tuple[float, float]:
-    """Skew a correction map removes: (bottom-row minus top-row shift in x, extra height in y), px.
-
-    Measured between the first and last rows of the coarse grid, averaged over
-    the columns and extended linearly to the full frame height.
-    """
-    gh = wm.dx.shape[0]
-    span_rows = (gh - 1) * wm.height / gh  # distance between the first and last coarse rows
-    stretch = (wm.height - 1) / span_rows
-    return (float(np.mean(wm.dx[-1] - wm.dx[0]) * stretch), float(np.mean(wm.dy[-1] - wm.dy[0]) * stretch))
+    """Skew a correction map removes, px: (x shift of the bottom row against the top row,
+    extra height), from the full-size map's first and last rows, averaged over the columns."""
+    map_x, map_y = wm.full(wm.width, wm.height)
+    lean = float(np.mean(map_x[-1].astype(np.float64) - map_x[0]))
+    height = float(np.mean(map_y[-1].astype(np.float64) - map_y[0])) - (wm.height - 1)
+    return lean, height
 
 
 def skew_per_frame(model: MotionModel, clock: RowClock, reference_line: str) -> np.ndarray:
@@ -191,7 +191,7 @@ def motion_table(model: MotionModel, clock: RowClock, reference_line: str) -> li
     rows = []
     for k in range(len(clock.frame_times)):
         t_ref = float(clock.reference_time(k, reference_line))
-        px, py, roll, log_zoom = (float(v) for v in model.segment_for(k).evaluate(np.array([t_ref])))
+        px, py, roll, log_zoom = (float(v[0]) for v in model.segment_for(k).evaluate(np.array([t_ref])))
         rows.append({"frame": k, "time_s": float(clock.frame_times[k]), "reference_time_s": t_ref,
                      "pan_x_px": px, "pan_y_px": py, "roll_deg": math.degrees(roll), "zoom": math.exp(log_zoom),
                      "skew_x_px": float(skew[k, 0]), "skew_y_px": float(skew[k, 1])})

@@ -15,6 +15,7 @@ from __future__ import annotations
 import queue
 import threading
 import time
+from collections import deque
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Callable
@@ -24,7 +25,7 @@ import numpy as np
 
 from skewfix.decode import VideoInfo, open_source
 from skewfix.errors import InputError, RuntimeProblem
-from skewfix.motion import FitSettings, MotionModel, PairObservations, fit_motion
+from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion
 from skewfix.rowclock import RowClock
 from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import WarpMap, correction_map, crop_zoom, outside_matte, remap_plane, reskew_map
@@ -146,6 +147,18 @@ class FrameWarper:
             maps = (self.map_for(k) for k in range(len(clock.frame_times)))
             self.zoom = crop_zoom(maps, info.width, info.height)
 
+    # The render loop's interface: a warper with the whole clip's motion can map
+    # any frame at once; `StreamingWarper` needs to look ahead first.
+    def observe(self, frame) -> None:
+        """Called for every decoded frame, in order, on the decoding thread."""
+
+    def mappable(self, k: int, observed: int, finished: bool) -> bool:
+        return True
+
+    @property
+    def total(self) -> int | None:
+        return len(self.clock.frame_times)
+
     def map_for(self, k: int) -> WarpMap:
         if self.settings.direction == "reskew":
             return reskew_map(self.model, self.clock, k, self.settings.reference_line)
@@ -153,17 +166,116 @@ class FrameWarper:
 
     def apply(self, k: int, planes, subsampling):
         wm = self.map_for(k)
+        return self.apply_map(wm, planes, subsampling), wm
+
+    def apply_map(self, wm: WarpMap, planes, subsampling):
+        """Remap every plane at its own size and depth (identity maps copy nothing)."""
         if wm.is_identity():
-            return planes, wm
+            return planes
         fills = black_levels(self.info, len(planes))
         out = []
         for plane, sub, fill in zip(planes, subsampling, fills):
             h, w = plane.shape[:2]
             mx, my = wm.full(w, h, sub)
             channels = plane.shape[2] if plane.ndim == 3 else 1
+            # luma (and RGB) with cubic convolution; subsampled chroma bilinear (cheaper, and
+            # chroma carries little fine detail)
+            interp = "cubic" if sub == (1, 1) else "linear"
             out.append(remap_plane(plane, mx, my, "black" if self.settings.border == "black" else "edge",
-                                   (fill,) * channels if channels > 1 else fill))
-        return out, wm
+                                   (fill,) * channels if channels > 1 else fill, interp))
+        return out
+
+
+class StreamingWarper(FrameWarper):
+    """Corrects while decoding: tracks each frame as it arrives and fits the motion
+    in windows of ``window`` frames with ``margin`` frames of context on each
+    side, so only about ``window + margin`` full frames ever wait in memory.
+
+    Each frame is mapped with exactly one window's fit; the correction depends
+    only on the motion *within* that frame, so window boundaries leave no seam.
+    """
+
+    def __init__(self, info: VideoInfo, readout: float, line_order: str, settings: RenderSettings,
+                 fit: FitSettings | None = None, tracker: TrackerSettings | None = None,
+                 window: int = 24, margin: int = 8, times: StageTimes | None = None):
+        self.info, self.settings, self.zoom = info, settings, 1.0
+        self.readout, self.line_order = readout, line_order
+        self.fit_settings = fit or FitSettings()
+        self.tracker = PairTracker(tracker)
+        self.window, self.margin = window, margin
+        self.stage_times = times or StageTimes()
+        self._lock = threading.Lock()
+        self.frame_times: list[float] = []
+        self.pts: list = []
+        self._pairs: dict[int, PairObservations] = {}
+        self.track_counts: dict[int, int] = {}
+        self._fitted_until = 0
+        self._windows: list[tuple[int, int, int, MotionModel, RowClock]] = []
+        self.segments = []
+        self.cuts: list[int] = []
+        self.unmeasured: list[int] = []
+
+    @property
+    def total(self):
+        return expected_frames(self.info)
+
+    def observe(self, frame) -> None:
+        t0 = time.perf_counter()
+        obs = self.tracker.push(frame.luma, frame.bit_depth)
+        with self._lock:
+            self.frame_times.append(frame.time)
+            self.pts.append(frame.pts)
+            if obs is not None:
+                self._pairs[obs.k] = obs
+                self.track_counts[obs.k] = len(obs.p0)
+        self.stage_times.track += time.perf_counter() - t0
+
+    def mappable(self, k: int, observed: int, finished: bool) -> bool:
+        while k >= self._fitted_until:
+            if not finished and observed < self._fitted_until + self.window + self.margin:
+                return False
+            self._fit_next(observed)
+        return True
+
+    def _fit_next(self, observed: int) -> None:
+        t0 = time.perf_counter()
+        a = self._fitted_until
+        b = min(a + self.window, observed)
+        if observed - b < self.margin // 2:  # do not leave a stub of a window at the end
+            b = observed
+        lo, hi = max(0, a - self.margin), min(observed, b + self.margin)
+        with self._lock:
+            times = np.asarray(self.frame_times[lo:hi])
+            pairs = [PairObservations(p.k - lo, p.p0, p.p1, p.cut) for k, p in self._pairs.items()
+                     if lo <= k < hi - 1]
+            for k in [k for k in self._pairs if k < b - self.margin]:
+                del self._pairs[k]  # bounded memory: old tracks are no longer needed
+        clock = RowClock(times, self.info.height, self.readout, self.line_order)
+        model = fit_motion(pairs, clock, self.info.width, self.fit_settings)
+        self._windows.append((a, b, lo, model, clock))
+        if len(self._windows) > 2:
+            self._windows.pop(0)
+        for seg in model.segments:  # keep the part this window is responsible for
+            first, last = max(seg.first_frame + lo, a), min(seg.last_frame + lo, b - 1)
+            if first <= last:
+                self.segments.append(MotionSegment(first, last, seg.knot_start, seg.knot_spacing, seg.coefficients))
+        self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
+        self.unmeasured += [k + lo for k in model.unmeasured_pairs if a <= k + lo < b]
+        self._fitted_until = b
+        self.stage_times.fit += time.perf_counter() - t0
+
+    def map_for(self, k: int) -> WarpMap:
+        for a, b, lo, model, clock in reversed(self._windows):
+            if a <= k < b:
+                return correction_map(model, clock, k - lo, self.settings.reference_line)
+        raise IndexError(f"frame {k} has no fitted motion yet")
+
+    def whole_model(self) -> tuple[RowClock, MotionModel]:
+        """The clip's motion as one model (one segment per window or shot)."""
+        clock = RowClock(np.asarray(self.frame_times), self.info.height, self.readout, self.line_order)
+        model = MotionModel(self.info.width, self.info.height, list(self.segments),
+                            unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts))
+        return clock, model
 
 
 _END = object()
@@ -183,11 +295,15 @@ def _run_thread(target, out_q: queue.Queue, errors: list):
 
 
 def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, progress: Progress = _quiet,
-           times: StageTimes | None = None, on_frame=None, stop: threading.Event | None = None) -> int:
-    """Second pass: decode, warp and encode every frame; copies other streams.
+           times: StageTimes | None = None, on_frame=None, stop: threading.Event | None = None,
+           report: dict | None = None) -> int:
+    """Decode, warp and encode every frame; copies other streams packet for packet.
 
-    ``on_frame(k, warp_map, planes_out)`` is called for every frame (maps,
-    mattes, reports). Returns the number of frames written.
+    Three threads joined by bounded queues: decoding (plus tracking, for a
+    `StreamingWarper`), warping (with the warper's look-ahead), and encoding
+    on the calling thread. ``on_frame(k, warp_map, planes_out)`` is called for
+    every frame (maps, mattes, reports); ``report`` receives damaged-packet
+    counts. Returns the number of frames written.
     """
     times = times or StageTimes()
     stop = stop or threading.Event()
@@ -196,7 +312,7 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
     decoded: queue.Queue = queue.Queue(maxsize=depth)
     warped: queue.Queue = queue.Queue(maxsize=depth)
     errors: list = []
-    total = len(warper.clock.frame_times)
+    total = warper.total
     container = getattr(source, "container", None)
     copy = container is not None and hasattr(sink, "copy_packet")
 
@@ -205,27 +321,37 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
         for kind, item in source.demux(copy_streams=copy):
             if stop.is_set():
                 return
-            times.decode += time.perf_counter() - t
+            if kind == "frame":
+                times.decode += time.perf_counter() - t
+                warper.observe(item)  # tracking, for a streaming warper
             decoded.put((kind, item))
             t = time.perf_counter()
 
     def warp_stage():
+        waiting: deque = deque()  # the look-ahead: frames decoded but not yet mappable
+        observed, finished = 0, False
         while True:
+            while waiting and warper.mappable(waiting[0].index, observed, finished):
+                frame = waiting.popleft()
+                t = time.perf_counter()
+                planes, wm = warper.apply(frame.index, frame.planes, frame.subsampling)
+                times.remap += time.perf_counter() - t
+                warped.put(("frame", frame, planes, wm))
+            if finished or stop.is_set():
+                return
             item = decoded.get()
             if item is _END:
-                return
+                finished = True
+                continue
             kind, obj = item
             if kind == "frame":
-                if obj.index >= total:
+                if total is not None and isinstance(warper, FrameWarper) and not isinstance(warper, StreamingWarper) \
+                        and obj.index >= total:
                     continue
-                t = time.perf_counter()
-                planes, wm = warper.apply(obj.index, obj.planes, obj.subsampling)
-                times.remap += time.perf_counter() - t
-                warped.put(("frame", obj, planes, wm))
+                waiting.append(obj)
+                observed = obj.index + 1
             else:
                 warped.put(("packet", obj, None, None))
-            if stop.is_set():
-                return
 
     with source:
         t_dec = _run_thread(decode_stage, decoded, errors)
@@ -257,6 +383,9 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
                     pass
             t_dec.join(timeout=5)
             t_warp.join(timeout=5)
+        if report is not None:
+            report["lost_frames"] = getattr(source, "lost_frames", 0)
+            report["decode_errors"] = list(getattr(source, "decode_errors", []))
     if errors:
         exc = errors[0]
         if isinstance(exc, Exception):
@@ -310,19 +439,60 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
 
     check_output_path(input_path, output_path, options.force)
     with open_source(input_path, options.fps) as probe:  # refuse early, before any decoding
+        probe_info = probe.info
+        if hasattr(probe, "read_rotation"):
+            probe_info.rotation = probe.read_rotation()
         interval = probe.info.frame_interval
         if readout_resolver is None and interval and options.readout > interval * (1 + 1e-9):
             RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
     times = StageTimes()
-    analysis = analyse(input_path, options.fps, options.tracker, progress, times)
     notes: list[str] = []
-    readout, line_order, origin = options.readout, options.line_order, options.readout_origin
-    if readout_resolver is not None:
-        readout, line_order, origin = readout_resolver(analysis)
-    clock, model = solve(analysis, readout, line_order, options.fit, times)
-    if analysis.lost_frames or analysis.decode_errors:
-        notes.append(f"{analysis.lost_frames} damaged packet(s) skipped; "
-                     + "; ".join(analysis.decode_errors[:3]))
+    settings = RenderSettings(options.reference_line, options.border)
+    whole_clip = readout_resolver is not None or options.border == "crop"
+    if whole_clip:
+        # --readout auto and --border crop need the whole clip's motion first: analyse, then render
+        analysis = analyse(input_path, options.fps, options.tracker, progress, times)
+        readout, line_order, origin = options.readout, options.line_order, options.readout_origin
+        if readout_resolver is not None:
+            readout, line_order, origin = readout_resolver(analysis)
+        clock, model = solve(analysis, readout, line_order, options.fit, times)
+        warper = FrameWarper(model, clock, settings, analysis.info)
+        info = analysis.info
+        if warper.zoom > 1.0:
+            notes.append(f"crop border: the picture is enlarged {warper.zoom:.3f}x to hide missing edges")
+    else:
+        readout, line_order, origin = options.readout, options.line_order, options.readout_origin
+        info = probe_info
+        warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times)
+        analysis = None
+    if sink_factory is not None:
+        sink = sink_factory(info)
+    else:
+        import av
+
+        with av.open(input_path) as template:
+            sink = VideoSink(output_path, info, codec=options.codec, crf=options.crf,
+                             preset=options.preset, source_container=template, threads=options.threads)
+    notes.extend(sink.notes)
+    report: dict = {}
+    try:
+        written = render(input_path, sink, warper, options.fps, progress, times, on_frame, report=report)
+        if analysis is not None and written != analysis.n_frames:
+            raise RuntimeProblem(f"{input_path}: the second pass decoded {written} frames, the first "
+                                 f"{analysis.n_frames}; the file may be changing; nothing was written")
+        if written == 0:
+            raise InputError(f"{input_path}: no frame could be decoded")
+        sink.finish()
+    except BaseException:
+        sink.abort()
+        raise
+    if analysis is None:
+        clock, model = warper.whole_model()
+        analysis = Analysis(info, clock.frame_times, warper.pts, [], report.get("lost_frames", 0),
+                            report.get("decode_errors", []))
+    lost, errors = report.get("lost_frames", 0), report.get("decode_errors", [])
+    if lost or errors:
+        notes.append(f"{lost} damaged packet(s) skipped; " + "; ".join(errors[:3]))
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")
@@ -330,26 +500,5 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
         ks = model.unmeasured_pairs
         notes.append(f"no motion could be measured between {len(ks)} frame pair(s) "
                      f"(first after frame {ks[0]}); bridged smoothly")
-    warper = FrameWarper(model, clock, RenderSettings(options.reference_line, options.border), analysis.info)
-    if warper.zoom > 1.0:
-        notes.append(f"crop border: the picture is enlarged {warper.zoom:.3f}x to hide missing edges")
-    if sink_factory is not None:
-        sink = sink_factory(analysis.info)
-    else:
-        import av
-
-        with av.open(input_path) as template:
-            sink = VideoSink(output_path, analysis.info, codec=options.codec, crf=options.crf,
-                             preset=options.preset, source_container=template, threads=options.threads)
-    notes.extend(sink.notes)
-    try:
-        written = render(input_path, sink, warper, options.fps, progress, times, on_frame)
-        if written != analysis.n_frames:
-            raise RuntimeProblem(f"{input_path}: the second pass decoded {written} frames, the first "
-                                 f"{analysis.n_frames}; the file may be changing; nothing was written")
-        sink.finish()
-    except BaseException:
-        sink.abort()
-        raise
-    return FixResult(str(output_path), analysis.info, readout, origin, line_order, clock, model,
+    return FixResult(str(output_path), info, readout, origin, line_order, clock, model,
                      written, notes, times, analysis)

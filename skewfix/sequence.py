@@ -75,7 +75,7 @@ class FramePattern:
 
     @property
     def extension(self) -> str:
-        return Path(self.suffix).suffix.lower() if "." in self.suffix else ""
+        return os.path.splitext("frame" + self.suffix)[1].lower()
 
     def name_for(self, number: int) -> str:
         return f"{self.prefix}{number:0{self.padding}d}{self.suffix}" if self.padding else \

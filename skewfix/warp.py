@@ -25,7 +25,7 @@ from skewfix.motion import MotionModel
 from skewfix.rowclock import RowClock
 
 BORDERS = ("edge", "black", "crop")
-GRID_STEP = 16
+GRID_STEP = 32  # px per coarse cell; must be even (chroma uses half)
 
 
 @dataclass
@@ -33,17 +33,26 @@ class WarpMap:
     """A displacement field on a coarse grid for one frame.
 
     ``dx``/``dy`` hold ``source - target`` at the coarse sample positions
-    ``linspace(0, W-1, gw)`` by ``linspace(0, H-1, gh)``: the outermost samples
-    lie on the frame's edge pixels, so upsampling never extrapolates.
+    ``-cell/2 - 0.5 + i * cell`` (both axes). The grid reaches half a cell
+    beyond every edge, so a plain bilinear ``cv2.resize`` by the factor
+    ``cell`` followed by a crop of ``cell`` pixels reproduces bilinear
+    interpolation exactly at every pixel, edges included, with no clamping.
+    The same samples serve a 2x-subsampled chroma plane (cell / 2).
     """
 
     dx: np.ndarray
     dy: np.ndarray
     width: int
     height: int
+    cell: int = GRID_STEP
 
     def is_identity(self) -> bool:
         return float(np.max(np.abs(self.dx))) < 1e-6 and float(np.max(np.abs(self.dy))) < 1e-6
+
+    def _upsample(self, coarse: np.ndarray, cell_x: int, cell_y: int, width: int, height: int) -> np.ndarray:
+        gh, gw = coarse.shape
+        big = cv2.resize(coarse, (gw * cell_x, gh * cell_y), interpolation=cv2.INTER_LINEAR)
+        return big[cell_y:cell_y + height, cell_x:cell_x + width]
 
     def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
         """Absolute source coordinates (map_x, map_y) for a plane of the given size.
@@ -54,26 +63,12 @@ class WarpMap:
         width = width or self.width
         height = height or self.height
         fx, fy = subsample
-        ux, uy = _upsampling_index(self.width, self.height, width, height, self.dx.shape[1], self.dx.shape[0], fx, fy)
-        coarse = cv2.merge([self.dx * (1.0 / fx), self.dy * (1.0 / fy)])
-        both = cv2.remap(coarse, ux, uy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-        mx, my = cv2.split(both)
-        mx += _arange_row(width)
-        my += _arange_col(height)
+        cx, cy = self.cell // fx, self.cell // fy
+        dx = self.dx if fx == 1 else self.dx * (1.0 / fx)
+        dy = self.dy if fy == 1 else self.dy * (1.0 / fy)
+        mx = self._upsample(dx, cx, cy, width, height) + _arange_row(width)
+        my = self._upsample(dy, cx, cy, width, height) + _arange_col(height)
         return mx, my
-
-
-@lru_cache(maxsize=16)
-def _upsampling_index(full_w, full_h, width, height, gw, gh, fx, fy):
-    """Fractional coarse-grid indices of every pixel of a (sub-sampled) plane."""
-    # plane pixel centre -> luma coordinate (centre-sited chroma) -> grid index
-    lx = (np.arange(width, dtype=np.float64) + 0.5) * fx - 0.5
-    ly = (np.arange(height, dtype=np.float64) + 0.5) * fy - 0.5
-    gx = np.clip(lx * (gw - 1) / max(full_w - 1, 1), 0, gw - 1).astype(np.float32)
-    gy = np.clip(ly * (gh - 1) / max(full_h - 1, 1), 0, gh - 1).astype(np.float32)
-    ux = np.broadcast_to(gx[None, :], (height, width)).copy()
-    uy = np.broadcast_to(gy[:, None], (height, width)).copy()
-    return ux, uy
 
 
 @lru_cache(maxsize=16)
@@ -87,10 +82,12 @@ def _arange_col(n):
 
 
 def coarse_grid(width: int, height: int, step: int = GRID_STEP):
-    """Sample positions of the coarse map, edge pixels included."""
-    gw = max(2, int(np.ceil((width - 1) / step)) + 1)
-    gh = max(2, int(np.ceil((height - 1) / step)) + 1)
-    return np.meshgrid(np.linspace(0, width - 1, gw), np.linspace(0, height - 1, gh))
+    """Sample positions of the coarse map: cell centres extended half a cell past each edge."""
+    gw = int(np.ceil(width / step)) + 2
+    gh = int(np.ceil(height / step)) + 2
+    xs = -step / 2.0 - 0.5 + np.arange(gw) * step
+    ys = -step / 2.0 - 0.5 + np.arange(gh) * step
+    return np.meshgrid(xs, ys)
 
 
 def _zoom_about_centre(px, py, width, height, zoom):
@@ -109,9 +106,9 @@ def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: 
     qx, qy = model.world_from_image(seg, np.full(px.shape, t_ref), px, py)
     ys = py.copy()
     for _ in range(iterations):
-        ts = clock.row_time(k, np.clip(ys, 0, h - 1))
+        ts = clock.row_time(k, ys)  # rows past the edges extrapolate the clock smoothly
         xs, ys = model.image_from_world(seg, ts, qx, qy)
-    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h)
+    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
 
 
 def reskew_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
@@ -124,7 +121,7 @@ def reskew_map(model: MotionModel, clock: RowClock, k: int, reference_line: str 
     t_row = clock.row_time(k, gy)
     qx, qy = model.world_from_image(seg, t_row, gx, gy)
     xs, ys = model.image_from_world(seg, np.full(gx.shape, t_ref), qx, qy)
-    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h)
+    return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
 
 
 def crop_zoom(maps, width: int, height: int, margin: float = 0.5) -> float:

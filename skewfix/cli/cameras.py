@@ -15,10 +15,10 @@ cameras_app = typer.Typer(
 
 
 def _readout_text(camera) -> str:
-    text = f"{camera.readout_s * 1e3:.3f} ms"
+    text = f"{camera.readout_s * 1e3:.3f}"
     if camera.uncertainty_s is not None:
         text += f" ± {camera.uncertainty_s * 1e3:.3f}"
-    return text
+    return text + " ms"
 
 
 @cameras_app.command("list")

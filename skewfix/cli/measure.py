@@ -6,7 +6,6 @@ import json
 import math
 import os
 import re
-import tempfile
 from pathlib import Path
 from typing import Optional
 
@@ -15,6 +14,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.fix import choice, parse_rate
+from skewfix.cameras import write_text_whole, write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
 from skewfix.rowclock import parse_duration
@@ -97,27 +97,19 @@ def check_report_path(path: str | None, clip: str, what: str) -> Path | None:
     return out
 
 
-def write_whole(path: Path, write) -> None:
-    """Call ``write(temporary_path)`` for a temporary name beside ``path``, then rename it into place."""
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".partial{path.suffix}", dir=path.parent)
-    os.close(fd)
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+def _finite_or_none(value):
+    """JSON has no NaN or infinity: such numbers are written as null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite_or_none(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite_or_none(v) for v in value]
+    return value
 
 
 def write_json(path: Path, data: dict) -> None:
-    def dump(tmp):
-        with open(tmp, "w", encoding="utf-8") as handle:
-            json.dump(data, handle, indent=2, allow_nan=True)
-            handle.write("\n")
-    write_whole(path, dump)
+    write_text_whole(path, json.dumps(_finite_or_none(data), indent=2, allow_nan=False) + "\n")
 
 
 def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):

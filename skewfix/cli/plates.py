@@ -34,7 +34,7 @@ from skewfix.cli import app
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
-from skewfix.sequence import (VIDEO_FIRST_NUMBER, FramePattern, StagedSequence, check_sequence_output,
+from skewfix.sequence import (DEPTHS, VIDEO_FIRST_NUMBER, FramePattern, StagedSequence, check_sequence_output,
                               is_pattern, open_sink, parse_pattern, planes_to_rgb)
 
 MAP_NAMES = ("correct_map", "reskew_map")
@@ -132,9 +132,17 @@ class FixDeliverables:
     def check(self) -> None:
         from skewfix.motionfile import check_new_file
 
+        depth = self.sink_options.get("depth")
         if is_pattern(self.output):
             check_sequence_output(self.input, self.output, self.force)
-        elif self.sink_options.get("depth") is not None:
+            video_only = [f"--{key}" for key in ("codec", "crf", "preset") if self.sink_options.get(key) is not None]
+            if video_only:
+                verb = "applies" if len(video_only) == 1 else "apply"
+                raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
+                                   "type from the file extension (.png, .tif)")
+            if depth is not None and depth not in DEPTHS:
+                raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
+        elif depth is not None:
             raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
         check_distinct_outputs(self.input, {"OUTPUT": self.output, "--save-motion": self.motion,
                                             "--save-motion-csv": self.motion_csv, "--report": self.report})
@@ -154,6 +162,11 @@ class FixDeliverables:
                 raise UsageProblem(f"--save-maps {self.maps_dir}: is a file; give a folder")
             if not (folder.parent if str(folder.parent) else Path(".")).is_dir():
                 raise UsageProblem(f"--save-maps {self.maps_dir}: folder {folder.parent} does not exist")
+            for name in MAP_NAMES:
+                found = self._map_pattern(name).numbers_present()
+                if found and not self.force:
+                    raise UsageProblem(f"--save-maps {self.maps_dir}: already holds {name} files "
+                                       "(add --force to replace them)")
 
     def _map_pattern(self, name: str) -> FramePattern:
         return parse_pattern(str(Path(self.maps_dir) / f"{name}.%04d.tif"))

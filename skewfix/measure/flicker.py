@@ -21,8 +21,9 @@ The fit, all frames jointly:
 3. a coarse scan of ``kappa`` over ``(0, f * frame_interval]`` (a readout no
    longer than the frame interval) by the energy a per-frame sinusoid explains
    (a periodogram with the nuisance projected out), then a nonlinear least
-   squares refinement (scipy.optimize.least_squares) of ``kappa`` with the
-   per-frame amplitudes and phases profiled out (variable projection);
+   squares refinement of ``kappa`` with the per-frame amplitudes and phases
+   of the fundamental and two harmonics profiled out (variable projection;
+   Brent's method on the profiled sum of squares);
 4. one-sigma uncertainty from the Jacobian and the residual variance, and a
    heteroscedasticity-and-autocorrelation-consistent (Newey-West) sandwich
    along the rows; the larger of the two is reported;
@@ -58,7 +59,7 @@ _KAPPA_STEP = 0.04
 _DEG_PER_FRAME = (3, 4, 5)  # still bands: the background carries vignetting and
                             # gradient; the middle one is used, the spread is
                             # its model error
-_DEG_COMMON = (1, 2)        # drifting bands: the common profile carries them;
+_DEG_COMMON = (0, 1)        # drifting bands: the common profile carries them;
                             # per frame only what shake and exposure change
 # Smallest share of the band energy that changes from frame to frame before the
 # common-profile fit is tried (1 - |mean exp(i 2 pi f t_k)|^2).
@@ -166,6 +167,17 @@ def _fit_at(kappa, r, y, height, basis, harmonics=1):
     return coef, model, r - model
 
 
+def _explained_at(kappa, r, y, height, basis, harmonics=1):
+    """Energy of ``r`` explained by the per-frame sinusoids at ``kappa``."""
+    x = _sin_basis(kappa, y, height, basis, harmonics)
+    g = x @ x.T
+    u = x @ r.T                                           # (2h, n)
+    try:
+        return float(np.sum(np.linalg.solve(g, u) * u))
+    except np.linalg.LinAlgError:
+        return 0.0
+
+
 def _hac_variance(score, lags):
     """Newey-West (Bartlett) long-run variance of the sum of ``score``."""
     s = np.asarray(score, float)
@@ -240,7 +252,7 @@ def _no_bands_message(light_hz, exposure_s, global_hint):
         why.append("the frames change brightness with the light but the rows do not, "
                    "so the camera may have a global shutter (readout 0), which shows none")
     else:
-        why.append("a global-shutter camera shows none either")
+        why.append("a camera with a global shutter (readout 0) shows none either")
     return ("no flicker bands found (band contrast below the noise): " + "; ".join(why)
             + "; shoot at a fast shutter (1/1000 s or faster) on a plain, evenly lit wall "
             "under the flickering light (note: " + _SAFETY + ")")
@@ -428,8 +440,11 @@ def measure_flicker(
                 "shutter on a plain, evenly lit wall")
         raise MeasurementRefused(_no_bands_message(f, exposure_s, global_hint))
 
+    for c in cands:
+        c["jack"] = _frame_jackknife(c, height, kappas, kappa_max)
+
     def total(c):
-        return math.hypot(c["sigma"], c["sys"])
+        return math.hypot(max(c["sigma"], c["jack"]), c["sys"])
 
     if len(cands) == 2 and total(cands[1]) < 3.0 * total(cands[0]):
         best = cands[1]          # free of background model error: preferred
@@ -494,6 +509,21 @@ def measure_flicker(
             notes.append(f"exposure {exposure_s * 1e3:.3g} ms keeps only {sf:.0%} of the band "
                          "contrast (|sinc(f*exposure)|): a faster shutter gives cleaner bands")
 
+    # per-frame band phase for the plot: with the common profile removed, put
+    # back the part of the bands that every frame shares (locked-phase fit)
+    z_plot = z
+    phase_kind = "band phase"
+    if common and order == "undetermined":
+        phase_kind = "phase of the moving part of the bands"
+    elif common:
+        sign = -1.0 if order == "bottom-up" else 1.0
+        f_use = order_info.get("light_hz_fit", f)
+        w = np.exp(1j * sign * 2 * np.pi * f_use * (t[used] - t[used][0]))
+        wc = w - w.mean()
+        if np.sum(np.abs(wc) ** 2) > 1e-12:
+            zz = np.sum(z * wc.conj()) / np.sum(np.abs(wc) ** 2)
+            z_plot = z + zz * w.mean()
+
     # amplitude of the fundamental in log luminance; a profile common to all
     # frames takes away the part of the bands that does not move, a share
     # |mean exp(i 2 pi f t_k)|^2 of their energy, which is put back here
@@ -509,9 +539,10 @@ def measure_flicker(
         "band_measured": best["r"],
         "band_model": best["model"],
         "frame_times": t[used],
-        "amplitude": np.abs(z),
+        "amplitude": np.abs(z_plot),
         "band_amplitude": band_amplitude,
-        "phase": np.angle(z),
+        "phase": np.angle(z_plot),
+        "phase_kind": phase_kind,
         "cycles_per_height": kappa,
         "band_period_rows": height / kappa,
         "light_hz": f,
@@ -526,6 +557,7 @@ def measure_flicker(
         "sigma_white_s": best["sigma_white"] / f,
         "sigma_hac_s": best["sigma_hac"] / f,
         "sigma_model_s": best["sys"] / f,
+        "sigma_jackknife_s": best["jack"] / f,
         "candidates": {("common-profile" if c["common"] else "per-frame"):
                        (c["kappa"] / f, total(c) / f) for c in cands},
         "line_order_info": order_info,
@@ -560,9 +592,32 @@ def _global_shutter_hint(q, theta, sigma2, m):
     return float(np.std(fm)) > max(10 * noise, 1e-3)
 
 
-def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None):
+def _frame_jackknife(c, height, kappas, kappa_max, blocks=6):
+    """Delete-a-block jackknife over contiguous groups of frames (Quenouille-
+    Tukey, textbook): catches errors that differ from frame to frame, such as
+    inter-frame compression, which the row-wise sandwich does not see."""
+    q = c["q"]
+    n = q.shape[0]
+    if n < blocks:
+        return 0.0
+    groups = np.array_split(np.arange(n), blocks)
+    ks = []
+    for g in groups:
+        keep = np.setdiff1d(np.arange(n), g)
+        sub = _solve(q[keep], c["y"], height, c["degree"], c["common"], kappas, kappa_max,
+                     c["shifts"][keep], drop_outliers=False)
+        if sub["ok"]:
+            ks.append(sub["kappa"])
+    if len(ks) < 3:
+        return 0.0
+    ks = np.asarray(ks)
+    return float(math.sqrt((len(ks) - 1) / len(ks) * np.sum((ks - ks.mean()) ** 2)))
+
+
+def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None,
+           drop_outliers=True):
     """One joint fit of all frames; returns a dict (``ok`` False: no bands)."""
-    from scipy.optimize import least_squares
+    from scipy.optimize import minimize_scalar
 
     n = q.shape[0]
     y = np.asarray(rows, dtype=float)
@@ -574,41 +629,46 @@ def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None):
         return _project_out(r, basis)
 
     def refine(r_data, k0, lo, hi, nh):
+        """Nonlinear least squares in kappa with the per-frame amplitudes and
+        phases profiled out (variable projection): Brent's method on the
+        profiled sum of squares, then the Jacobian of the residual vector."""
         lo, hi = max(lo, _KAPPA_MIN), min(hi, kappa_max)
         if hi - lo < 1e-9:
             lo, hi = k0 - 1e-6, k0 + 1e-6
-
-        def resid(par):
-            return _fit_at(par[0], r_data, y, height, basis, nh)[2].ravel()
-
-        x0 = min(max(k0, lo + 1e-9), hi - 1e-9)
-        return least_squares(resid, [x0], bounds=([lo], [hi]), jac="3-point",
-                             x_scale=[_KAPPA_STEP], xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        energy = float(np.sum(r_data ** 2))
+        sol = minimize_scalar(
+            lambda k: energy - _explained_at(k, r_data, y, height, basis, nh),
+            bounds=(lo, hi), method="bounded", options={"xatol": 1e-9 * max(hi, 1.0)})
+        k = float(sol.x)
+        h = 1e-5 * max(k, 1e-3)
+        jac = (_fit_at(k + h, r_data, y, height, basis, nh)[2]
+               - _fit_at(k - h, r_data, y, height, basis, nh)[2]).ravel() / (2 * h)
+        return k, jac
 
     def fit(r_data):
         # coarse: the fundamental alone (the strongest component: no octave error)
         scan = _explained_scan(kappas, r_data, y, height, basis)
         k0 = float(kappas[int(np.argmax(scan))])
-        k1 = float(refine(r_data, k0, k0 - 2 * _KAPPA_STEP, k0 + 2 * _KAPPA_STEP, 1).x[0])
+        k1, _ = refine(r_data, k0, k0 - 2 * _KAPPA_STEP, k0 + 2 * _KAPPA_STEP, 1)
         # fine: fundamental plus harmonics (the log, the transfer curve and PWM
         # lights all make harmonics; left out, they pull the fundamental)
-        sol = refine(r_data, k1, 0.85 * k1, 1.15 * k1, _HARMONICS)
-        return scan, float(sol.x[0]), sol
+        k2, jac = refine(r_data, k1, 0.85 * k1, 1.15 * k1, _HARMONICS)
+        return scan, k2, jac
 
     used = np.arange(n)
     r = detrend(q)
-    scan, kappa, sol = fit(r)
+    scan, kappa, jac = fit(r)
     # drop frames that do not fit at all (a flash, a cut, a bump): common practice
     _, _, res0 = _fit_at(kappa, r, y, height, basis, _HARMONICS)
     frame_rms = np.sqrt(np.mean(res0 ** 2, axis=1))
     bad = frame_rms > 5.0 * float(np.median(frame_rms)) + 1e-12
-    if n >= 4 and 0 < bad.sum() <= n // 4:
+    if drop_outliers and n >= 4 and 0 < bad.sum() <= n // 4:
         used = np.flatnonzero(~bad)
         q, shifts = q[used], shifts[used]
         n = len(used)
         common = common and n >= 3
         r = detrend(q)
-        scan, kappa, sol = fit(r)
+        scan, kappa, jac = fit(r)
 
     coef, model, res = _fit_at(kappa, r, y, height, basis, _HARMONICS)
     m = len(y)
@@ -625,7 +685,6 @@ def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None):
     # one-sigma uncertainty: Jacobian with the residual variance, and a
     # Newey-West sandwich along the rows (residuals of neighbouring rows and
     # of different frames correlate: compression, texture); the larger wins
-    jac = np.asarray(sol.jac).reshape(-1)
     jtj = float(jac @ jac)
     var_white = sigma2 / jtj if jtj > 0 else math.inf
     score = (jac.reshape(n, m) * res).sum(axis=0)
@@ -641,7 +700,8 @@ def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None):
     return dict(ok=ok, why=why, kappa=kappa, sigma=sigma, sigma_white=math.sqrt(var_white),
                 sigma_hac=math.sqrt(var_hac), sys=0.0, coef=coef, model=model, res=res, r=r,
                 used=used, scan=scan, total=total, r2=r2, f_stat=f_stat, sigma2=sigma2,
-                ssr=ssr, basis=basis, y=y, shifts=shifts, common=common, degree=degree)
+                ssr=ssr, basis=basis, y=y, shifts=shifts, common=common, degree=degree,
+                q=q, jack=0.0)
 
 
 # ----------------------------------------------------------------------------
@@ -674,29 +734,34 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     spread = 2.5 * float(np.max(np.abs(model))) if np.max(np.abs(model)) > 0 else 1.0
     for j, k in enumerate(picks):
         off = -j * spread
-        ax.plot(rows, meas[k] + off, color="0.55", lw=0.8,
-                label="measured (detrended)" if j == 0 else None)
-        ax.plot(rows, model[k] + off, color="C3", lw=2.0,
+        ax.plot(rows, model[k] + off, color="C3", lw=4.0, alpha=0.45,
                 label="fitted bands" if j == 0 else None)
-        ax.text(rows[-1], off, f" frame {estimate.frames_used[k]}", va="center", fontsize=8)
+        ax.plot(rows, meas[k] + off, color="k", lw=0.7,
+                label="measured (detrended)" if j == 0 else None)
+        ax.text(rows[-1] + 0.01 * (rows[-1] - rows[0]), off,
+                f"frame {estimate.frames_used[k]}", va="center", fontsize=8)
+    ax.set_xlim(rows[0], rows[-1] + 0.09 * (rows[-1] - rows[0]))
     ax.set_xlabel("row (stored orientation, 0 = top)")
     ax.set_ylabel("log luminance, frames offset")
     ax.set_title(f"band period {d['band_period_rows']:.1f} rows "
-                 f"({d['cycles_per_height']:.4f} cycles per frame height)")
-    ax.legend(loc="upper right", fontsize=8)
+                 f"({d['cycles_per_height']:.4f} cycles per frame height), "
+                 f"{d['fit_mode']} fit", loc="left", fontsize=10)
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2, fontsize=8,
+              frameon=False)
 
     ax = axes[1]
     ax.plot(np.asarray(d["scan_readout_s"]) * 1e3, d["scan_explained"], color="C0")
     ax.axvline(estimate.readout_s * 1e3, color="C3", ls="--",
                label=f"result {estimate.readout_s * 1e3:.3f} ms")
     ax.set_xlabel("candidate readout (ms)")
-    ax.set_ylabel("fraction of detrended\nvariance explained")
+    ax.set_ylabel("share of detrended variance\nexplained by the fundamental")
     ax.legend(loc="upper right", fontsize=8)
 
     ax = axes[2]
     t = np.asarray(d["frame_times"])
     ph = np.unwrap(np.asarray(d["phase"]))
-    ax.plot(t, ph - ph[0], "o", color="C0", ms=4, label="measured band phase")
+    ax.plot(t, ph - ph[0], "o", color="C0", ms=4,
+            label="measured " + d.get("phase_kind", "band phase"))
     f = d["light_hz"]
     info = d.get("line_order_info", {})
     fl = info.get("light_hz_fit", f)

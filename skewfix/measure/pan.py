@@ -98,12 +98,15 @@ def profile_shift(reference: np.ndarray, moving: np.ndarray, max_shift: float | 
         # moving(x + d) = gain * ref + offset  <=>  ref = (m - offset) / gain
         jac = np.stack([g, -target, -np.ones_like(xi)], axis=1)
         resid = m - gain * target - offset
-        step, *_ = np.linalg.lstsq(jac, -resid, rcond=None)
+        try:  # normal equations: a 3x3 system
+            step = np.linalg.solve(jac.T @ jac, -(jac.T @ resid))
+        except np.linalg.LinAlgError:
+            return float("nan"), 0.0
         step[0] = float(np.clip(step[0], -1.0, 1.0))
         d += step[0]
         gain += step[1]
         offset += step[2]
-        if abs(step[0]) < 1e-5 or abs(d) > limit + 2:
+        if abs(step[0]) < 1e-4 or abs(d) > limit + 2:
             break
     if abs(d) > limit + 2:
         return float("nan"), 0.0
@@ -251,9 +254,11 @@ def _weighted_line(u, s, w, with_tilt: bool):
     return slope, tilt, cov, resid
 
 
-def _residual_curve(u, s, w, height, order_sign, with_tilt, longest):
+def _residual_curve(u, s, w, height, order_sign, with_tilt, longest, best=None):
     """RMS lean misfit over the frame height (px) against candidate readouts."""
     candidates = np.linspace(0.0, longest, 241)
+    if best is not None:  # the result itself, so the marked minimum is the result
+        candidates = np.sort(np.append(candidates, best))
     out = np.empty_like(candidates)
     for i, r in enumerate(candidates):
         left = s - order_sign * u * r / height
@@ -385,7 +390,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
 
     sign = -1.0 if order == "bottom-up" else 1.0
     candidates, residuals = _residual_curve(u, s, w, height, sign, both_ways,
-                                            max(interval, 1.5 * readout))
+                                            max(interval, 1.5 * readout), readout)
     diagnostics = {
         "candidates_ms": candidates,
         "residuals": residuals,

@@ -101,3 +101,27 @@ class SweepPan(CameraPath):
             tau = t - start
             v = np.where(inside, v0 + (v1 - v0) * (1 - np.cos(np.pi * tau / dur)) / 2, v)
         return v
+
+
+def render_pan_clip(path, width: int, height: int, rate, n_frames: int, readout: float,
+                    speeds_px_s=(900.0,), line_order: str = "top-down", tilt_deg: float = 0.0,
+                    hold_s: float = 0.5, ramp_s: float = 0.15, camera: CameraPath | None = None,
+                    **render_options):
+    """Render a pan across `vertical_edges_scene` (H.264 by default); returns (renderer, clock, camera).
+
+    The scene is made wide enough for the whole move; ``render_options`` go to
+    `skewfix.synth.shutter.render_clip` (``crf``, ``noise_sigma``, ...).
+    """
+    from skewfix.synth.shutter import render_clip
+
+    camera = camera or SweepPan(speeds_px_s=tuple(speeds_px_s), hold_s=hold_s, ramp_s=ramp_s)
+    duration = n_frames / float(rate)
+    xs = camera.curves(np.linspace(0.0, duration + readout, 200))[0]
+    low, high = float(min(xs.min(), 0.0)), float(max(xs.max(), 0.0))
+    scene_h = int(round(height * 1.4))
+    scene = vertical_edges_scene(scene_h, int(high - low + 3 * width), tilt_rad=np.radians(tilt_deg))
+    # the renderer's origin is the scene point under the image centre at t = 0
+    origin = (1.5 * width - low, scene_h / 2.0)
+    renderer, clock = render_clip(path, scene, camera, width, height, rate, n_frames, readout, line_order,
+                                  origin=origin, **render_options)
+    return renderer, clock, camera

@@ -1,0 +1,225 @@
+#!/usr/bin/env python3
+"""Benchmark of the readout measurement methods on synthetic clips with exact truth.
+
+Prints one table row per scenario:
+
+    scenario | true readout ms | measured ms | error % | uncertainty ms |
+    line order (true/measured) | seconds
+
+``seconds`` is the measurement itself, end to end: decode + row profiles + fit
+(the rendering of the clip is not counted). Each scenario is a function that
+takes a working directory and returns a row dict (see ``row()``); add further
+methods (pan, motion) by appending functions to ``SCENARIOS``.
+
+Usage:  python scripts/bench_measure.py [--keep DIR] [--only SUBSTRING]
+
+Safety note for anyone reproducing these scenes with real lights: flickering
+or strobing light can trigger photosensitive seizures, and mains-powered light
+rigs are for qualified hands.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from skewfix.errors import SkewfixError  # noqa: E402
+from skewfix.measure.flicker import (  # noqa: E402
+    measure_flicker,
+    plot_flicker,
+    row_profiles_from_luma,
+)
+from skewfix.synth.flicker import render_flicker_clip  # noqa: E402
+
+BLACK_8BIT = 16.0  # limited-range luma black (ITU-R BT.709 coding, from memory)
+
+
+def decode_profiles(path):
+    """Row profiles of the Y plane and frame times (s) from the timestamps."""
+    import av
+
+    profiles, times = [], []
+    with av.open(str(path)) as container:
+        stream = container.streams.video[0]
+        for frame in container.decode(stream):
+            luma = frame.to_ndarray()[: frame.height] if frame.format.name == "yuv420p" \
+                else frame.to_ndarray(format="gray")
+            profiles.append(row_profiles_from_luma(luma, black_level=BLACK_8BIT))
+            times.append(float(frame.pts * frame.time_base))
+    return np.array(profiles), np.array(times)
+
+
+def row(scenario, true_s, est, order_true, order_expected, seconds, target_pct,
+        error=None):
+    """A table row; ``est`` is a ReadoutEstimate or None (then ``error`` says why).
+
+    ``order_true`` is the line order rendered; ``order_expected`` what the
+    method should report (``"undetermined"`` when the clip cannot show it).
+    """
+    if est is None:
+        return dict(scenario=scenario, true_ms=true_s * 1e3, measured_ms=float("nan"),
+                    error_pct=float("nan"), uncertainty_ms=float("nan"),
+                    order=f"{order_true}/-", seconds=seconds, target_pct=target_pct,
+                    ok=False, error=error)
+    err = (est.readout_s - true_s) / true_s * 100 if true_s > 0 else float("nan")
+    order_ok = est.line_order == order_expected
+    return dict(scenario=scenario, true_ms=true_s * 1e3, measured_ms=est.readout_s * 1e3,
+                error_pct=err, uncertainty_ms=est.uncertainty_s * 1e3,
+                order=f"{order_true}/{est.line_order}", seconds=seconds,
+                target_pct=target_pct, ok=abs(err) <= target_pct and order_ok, error=None)
+
+
+def _flicker_case(workdir, name, order_expected, target_pct=0.5, **kw):
+    truth = render_flicker_clip(Path(workdir) / f"{name}.mp4", **kw)
+    t0 = time.perf_counter()
+    try:
+        profiles, times = decode_profiles(truth.path)
+        est = measure_flicker(profiles, times, truth.light_hz, truth.frame_interval)
+    except SkewfixError as exc:
+        return row(name, truth.readout_s, None, truth.line_order, order_expected,
+                   time.perf_counter() - t0, target_pct, str(exc))
+    seconds = time.perf_counter() - t0
+    plot_flicker(est, Path(workdir) / f"{name}.png")
+    return row(name, truth.readout_s, est, truth.line_order, order_expected, seconds,
+               target_pct)
+
+
+# ---- flicker scenarios (issue 3 targets) -------------------------------------
+def flicker_1080p25_100hz_still(workdir):
+    # plain wall, 100 Hz light (50 Hz mains), f/fps = 4: bands stand still,
+    # so the line order cannot be told and must be reported undetermined
+    return _flicker_case(workdir, "flicker 1080p25 100Hz still", "undetermined",
+                         width=1920, height=1080, fps=Fraction(25), n_frames=24,
+                         readout_s=0.0185, light_hz=100.0, seed=101)
+
+
+def flicker_720p23976_120hz_shake(workdir):
+    # plain wall, 120 Hz light (60 Hz mains), f/fps = 5.005: bands nearly
+    # still; 2 px camera shake
+    return _flicker_case(workdir, "flicker 720p23.976 120Hz shake", "undetermined",
+                         width=1280, height=720, fps=Fraction(24000, 1001), n_frames=48,
+                         readout_s=0.0123, light_hz=120.0, shake_px=2.0, seed=102)
+
+
+def flicker_textured_bottomup_2997(workdir):
+    # a photograph (scikit-image's bundled "camera") as the wall, bottom-up
+    # scan, 100 Hz light at 30000/1001 fps: bands drift, order must come out right
+    import skimage.data
+
+    return _flicker_case(workdir, "flicker textured 1080p29.97 bottom-up", "bottom-up",
+                         width=1920, height=1080, fps=Fraction(30000, 1001), n_frames=36,
+                         readout_s=0.024, light_hz=100.0, line_order="bottom-up",
+                         texture=skimage.data.camera(), seed=103)
+
+
+# ---- pan scenarios (issue 3 target: within 3 %) -------------------------------
+def _pan_case(workdir, name, order_expected, target_pct=3.0, **kw):
+    from skewfix.measure.pan import measure_pan, plot_pan
+    from skewfix.synth.edges import render_pan_clip
+
+    path = Path(workdir) / f"{name}.mp4"
+    _, clock, _ = render_pan_clip(path, crf=18, noise_sigma=0.006, **kw)
+    t0 = time.perf_counter()
+    try:
+        est = measure_pan(str(path))  # end to end: analysis pass + lean per frame + fit
+    except SkewfixError as exc:
+        return row(name, clock.readout, None, clock.line_order, order_expected,
+                   time.perf_counter() - t0, target_pct, str(exc))
+    seconds = time.perf_counter() - t0
+    plot_pan(est, Path(workdir) / f"{name}.png")
+    return row(name, clock.readout, est, clock.line_order, order_expected, seconds, target_pct)
+
+
+def pan_1080p25_one_way(workdir):
+    # one steady pan at 1200 px/s across vertical bars
+    return _pan_case(workdir, "pan 1080p25 one way, 1200 px per s", "top-down", width=1920, height=1080,
+                     rate=Fraction(25), n_frames=24, readout=0.0185, speeds_px_s=(1200.0,))
+
+
+def pan_720p2997_both_ways_tilted(workdir):
+    # the chart leans 1 degree; panning 900 px/s one way and back cancels it
+    return _pan_case(workdir, "pan 720p29.97 both ways, tilted chart", "top-down", width=1280,
+                     height=720, rate=Fraction(30000, 1001), n_frames=40, readout=0.0156,
+                     speeds_px_s=(900.0, -900.0), tilt_deg=1.0, hold_s=0.55)
+
+
+def pan_720p25_bottom_up_from_rest(workdir):
+    # starts at rest, speeds up to 600 px/s; only the steady frames may be used
+    return _pan_case(workdir, "pan 720p25 bottom-up from rest", "bottom-up", width=1280, height=720,
+                     rate=Fraction(25), n_frames=36, readout=0.0224, speeds_px_s=(0.0, 600.0),
+                     line_order="bottom-up", hold_s=0.4, ramp_s=0.3)
+
+
+SCENARIOS = [
+    flicker_1080p25_100hz_still,
+    flicker_720p23976_120hz_shake,
+    flicker_textured_bottomup_2997,
+    pan_1080p25_one_way,
+    pan_720p2997_both_ways_tilted,
+    pan_720p25_bottom_up_from_rest,
+]
+
+
+def timing_1080p_24_frames(workdir):
+    """Seconds for decode + profiles + fit on 24 frames of 1080p (target < 5 s)."""
+    truth = render_flicker_clip(Path(workdir) / "timing.mp4", 1920, 1080,
+                                Fraction(30000, 1001), 24, 0.02, 100.0, seed=104)
+    t0 = time.perf_counter()
+    profiles, times = decode_profiles(truth.path)
+    measure_flicker(profiles, times, truth.light_hz, truth.frame_interval)
+    return time.perf_counter() - t0
+
+
+def print_table(rows):
+    head = ["scenario", "true readout ms", "measured ms", "error %", "uncertainty ms",
+            "line order (true/measured)", "seconds"]
+    body = []
+    for r in rows:
+        body.append([r["scenario"], f"{r['true_ms']:.3f}", f"{r['measured_ms']:.3f}",
+                     f"{r['error_pct']:+.3f}", f"{r['uncertainty_ms']:.4f}", r["order"],
+                     f"{r['seconds']:.2f}"])
+    widths = [max(len(h), *(len(b[i]) for b in body)) for i, h in enumerate(head)]
+    print(" | ".join(h.ljust(w) for h, w in zip(head, widths)))
+    print("-|-".join("-" * w for w in widths))
+    for b in body:
+        print(" | ".join(c.ljust(w) for c, w in zip(b, widths)))
+    for r in rows:
+        if r.get("error"):
+            print(f"  {r['scenario']}: refused: {r['error']}")
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--keep", metavar="DIR", help="keep clips and plots in DIR")
+    ap.add_argument("--only", metavar="TEXT", help="run scenarios whose name contains TEXT")
+    args = ap.parse_args(argv)
+
+    with tempfile.TemporaryDirectory() as tmp:
+        workdir = Path(args.keep) if args.keep else Path(tmp)
+        workdir.mkdir(parents=True, exist_ok=True)
+        rows = []
+        for fn in SCENARIOS:
+            if args.only and args.only not in fn.__name__:
+                continue
+            rows.append(fn(workdir))
+        print_table(rows)
+        ok = sum(r["ok"] for r in rows)
+        print(f"targets met (error within target, line order as expected; f/fps whole "
+              f"or nearly so must give undetermined): {ok}/{len(rows)}")
+        if not args.only:
+            secs = timing_1080p_24_frames(workdir)
+            print(f"timing: decode + profile + fit, 24 frames of 1080p: {secs:.2f} s "
+                  f"(target < 5 s: {'met' if secs < 5 else 'MISSED'})")
+    return 0 if ok == len(rows) else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,375 @@
+"""Speed and memory of `fix` against a plain transcode, side by side (issue 4's targets).
+
+Renders rolling-shutter whip pans with skewfix.synth (cached in scripts/.cache),
+then, in one run and alternating, times `fix` and a plain PyAV decode-and-encode
+of the same clip with the same encoder settings, each in a fresh child process
+whose peak resident memory is read from the kernel (wait4). Prints one table:
+the fix/plain ratio for 1080p25 H.264, 4K H.264 and a 10-bit 4:2:2 ProRes
+source, the time in each stage of fix, the peak memory of fix on a clip and on
+one four times longer, and the time of `skewfix measure --method flicker`.
+
+    python scripts/bench_speed.py [--quick] [--repeats N] [--profile]
+
+Times are the smallest of the repeats (the least disturbed run); only ratios
+measured in the same run are comparable. ``--profile`` adds a cProfile of one
+1080p fix, every thread profiled on its own, as a breakdown of where the time
+goes.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import dataclass
+from fractions import Fraction
+from pathlib import Path
+
+CACHE = Path(__file__).resolve().parent / ".cache"
+CACHE_VERSION = 1  # bump when the rendered clips change
+ENCODE = {"h264": ("libx264", {"crf": "18", "preset": "veryfast"}), "prores": ("prores_ks", {"profile": "3"})}
+RATE = Fraction(25)
+
+
+@dataclass(frozen=True)
+class ClipSpec:
+    """A rendered test clip: a whip pan (or a still-pan-still take) at a known readout."""
+
+    label: str
+    width: int
+    height: int
+    frames: int
+    readout: float
+    codec: str = "h264"          # key of ENCODE: the source's codec and the one fix writes
+    pan_frames: int | None = None  # frames the whip pan lasts, centred; default 80 % of the clip
+
+    @property
+    def file(self) -> Path:
+        kind = "prores.mov" if self.codec == "prores" else "h264.mp4"
+        pan = self.pan_frames or 0
+        return CACHE / f"v{CACHE_VERSION}_{self.width}x{self.height}_{self.frames}f_{pan}p_{kind}"
+
+    def camera(self):
+        from skewfix.synth.paths import WhipPan
+
+        pan = self.pan_frames or round(0.8 * self.frames)
+        speed = 168.0 * self.width / 1920 * float(RATE)  # 168 px a frame at 1080p (a fast whip pan)
+        return WhipPan(peak_px_s=speed, centre_s=self.frames / 2 / float(RATE), duration_s=pan / float(RATE),
+                       tilt_px_s=8.0 * self.height / 1080)
+
+    def render(self) -> Path:
+        """Render once; later runs reuse the cached file."""
+        from skewfix.synth.scenes import harbour_scene
+        from skewfix.synth.shutter import render_clip
+
+        if self.file.exists():
+            return self.file
+        CACHE.mkdir(exist_ok=True)
+        (CACHE / ".gitignore").write_text("*\n")  # the cache keeps itself out of git
+        camera = self.camera()
+        travel = float(camera.curves(self.frames / float(RATE))[0])
+        margin = self.width // 10
+        scene = harbour_scene(int(self.height * 1.3), int(travel + self.width + 3 * margin))
+        tmp = self.file.with_name(".partial_" + self.file.name)
+        encoder = ENCODE[self.codec][0]
+        pix_fmt = "yuv422p10le" if self.codec == "prores" else "yuv420p"
+        print(f"rendering {self.label}, {self.frames} frames -> {self.file.name} (cached) ...", file=sys.stderr)
+        render_clip(tmp, scene, camera, self.width, self.height, RATE, self.frames, self.readout,
+                    origin=(margin, self.height * 0.15), crf=14, codec=encoder, pix_fmt=pix_fmt)
+        os.replace(tmp, self.file)
+        return self.file
+
+
+def clip_specs(quick: bool) -> dict[str, ClipSpec]:
+    n, n4k = (20, 6) if quick else (60, 24)
+    return {
+        "1080": ClipSpec("1080p25 H.264", 1920, 1080, n, 0.020),
+        "1080long": ClipSpec("1080p25 H.264, 4x longer", 1920, 1080, 4 * n, 0.020, pan_frames=round(0.8 * n)),
+        "4k": ClipSpec("2160p25 H.264 (3840x2160)", 3840, 2160, n4k, 0.028),
+        "prores": ClipSpec("1080p25 ProRes 422 HQ 10-bit", 1920, 1080, n, 0.020, codec="prores"),
+    }
+
+
+# -- the two jobs, each run in a child process ----------------------------------------
+
+def plain_transcode(source: str, target: str, codec: str) -> int:
+    """Decode every frame and encode it again with the same encoder settings as fix; returns frames."""
+    import av
+
+    encoder, options = ENCODE[codec]
+    with av.open(source) as inp, av.open(target, "w") as out:
+        video = inp.streams.video[0]
+        video.thread_type = "AUTO"  # as skewfix's decoder does
+        stream = out.add_stream(encoder, rate=video.average_rate)
+        stream.width, stream.height = video.codec_context.width, video.codec_context.height
+        stream.pix_fmt = video.codec_context.pix_fmt
+        stream.codec_context.time_base = video.time_base
+        stream.options = dict(options)
+        frames = 0
+        for frame in inp.decode(video):
+            for packet in stream.encode(frame):
+                out.mux(packet)
+            frames += 1
+        for packet in stream.encode():
+            out.mux(packet)
+    return frames
+
+
+def fix(source: str, target: str, codec: str, readout: float) -> dict:
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    _, options = ENCODE[codec]
+    result = fix_clip(source, target, FixOptions(readout=readout, codec=codec, crf=int(options["crf"]) if "crf" in options
+                                                 else None, preset=options.get("preset"), force=True))
+    return {"frames": result.frames_written, "stages": result.times.as_dict()}
+
+
+def peak_rss_mb() -> float:
+    """This process's peak resident set (Linux VmHWM, reset by exec, so not inflated by the parent)."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024.0
+    except OSError:
+        pass
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # may include the parent's
+
+
+def child_main(job: str, *rest: str) -> None:
+    """One measured job in this (fresh) process; prints a JSON report as the last line."""
+    start = time.perf_counter()
+    if job == "plain":
+        report = {"frames": plain_transcode(rest[0], rest[1], rest[2])}
+    elif job == "fix":
+        report = fix(rest[0], rest[1], rest[2], float(rest[3]))
+    else:  # "cli": the skewfix command line, in process
+        from skewfix.cli import main as cli_main
+
+        report = {"exit": cli_main(list(rest))}
+    report["seconds"] = time.perf_counter() - start
+    report["peak_mb"] = peak_rss_mb()
+    print("\n" + json.dumps(report))
+
+
+def run_child(args: list[str]) -> tuple[dict, float]:
+    """Run a child job; returns (its JSON report, wall seconds of the whole process)."""
+    with tempfile.TemporaryFile() as err:
+        start = time.perf_counter()
+        proc = subprocess.run(args, stdout=subprocess.PIPE, stderr=err)
+        wall = time.perf_counter() - start
+        err.seek(0)
+        lines = err.read().decode(errors="replace").strip().splitlines() or ["(no message)"]
+    text = proc.stdout.decode(errors="replace").strip().splitlines()
+    report = json.loads(text[-1]) if text and text[-1].startswith("{") else {}
+    if proc.returncode != 0 or report.get("exit", 0) != 0:
+        raise RuntimeError(f"{' '.join(Path(a).name for a in args[2:])}: exit {proc.returncode}: {lines[-1]}")
+    return report, wall
+
+
+def job_args(job: str, spec: ClipSpec, target: Path) -> list[str]:
+    return [sys.executable, __file__, "--child", job, str(spec.file), str(target), spec.codec, repr(spec.readout)]
+
+
+def cli_args(*words: str) -> list[str]:
+    return [sys.executable, __file__, "--child", "cli", *words]
+
+
+def stream_summary(path: Path) -> str:
+    import av
+
+    with av.open(str(path)) as c:
+        cc = c.streams.video[0].codec_context
+        return f"{cc.name} {cc.profile or ''} {cc.pix_fmt} {cc.width}x{cc.height}".replace("  ", " ")
+
+
+@dataclass
+class Pair:
+    """The fastest plain and fix runs of one clip, with their peak memory."""
+
+    spec: ClipSpec
+    plain_s: float
+    fix_s: float
+    plain_mb: float
+    fix_mb: float
+    stages: dict
+    same_format: bool
+
+    @property
+    def ratio(self) -> float:
+        return self.fix_s / self.plain_s
+
+
+def compare(spec: ClipSpec, repeats: int, work: Path) -> Pair:
+    """Alternate plain and fix runs on one clip; keep the fastest of each."""
+    spec.render()
+    plain_out, fix_out = work / f"plain{spec.file.suffix}", work / f"fix{spec.file.suffix}"
+    plains, fixes = [], []
+    for _ in range(repeats):
+        report, _ = run_child(job_args("plain", spec, plain_out))
+        plains.append((report["seconds"], report["peak_mb"]))
+        report, _ = run_child(job_args("fix", spec, fix_out))
+        fixes.append((report["seconds"], report["peak_mb"], report["stages"]))
+    fastest_fix = min(fixes, key=lambda r: r[0])
+    same = stream_summary(plain_out) == stream_summary(fix_out)
+    return Pair(spec, min(p[0] for p in plains), fastest_fix[0], max(p[1] for p in plains),
+                max(f[1] for f in fixes), fastest_fix[2], same)
+
+
+# -- the flicker measurement --------------------------------------------------------
+
+def flicker_row(work: Path) -> str:
+    """`skewfix measure --method flicker --light-hz 100` on 24 frames of 1080p25, as a user runs it."""
+    from importlib.util import find_spec
+
+    if find_spec("skewfix.cli.measure") is None or find_spec("skewfix.synth.flicker") is None:
+        return "n/a (no measure command or flicker renderer yet)"
+    from skewfix.synth.flicker import render_flicker_clip
+
+    clip = CACHE / f"v{CACHE_VERSION}_flicker_1920x1080_24f.mp4"
+    if not clip.exists():
+        CACHE.mkdir(exist_ok=True)
+        tmp = clip.with_name(".partial_" + clip.name)
+        render_flicker_clip(tmp, 1920, 1080, RATE, 24, 0.020, 100.0)
+        os.replace(tmp, clip)
+    _, startup = run_child(cli_args("--help"))
+    try:
+        report, wall = run_child(cli_args("measure", str(clip), "--method", "flicker", "--light-hz", "100"))
+    except RuntimeError as exc:
+        return f"failed: {exc}"
+    return (f"{wall:.2f} s for the whole process ({verdict(wall, 5.0)}, target < 5 s), of which the command "
+            f"itself {report['seconds']:.2f} s; start-up alone (skewfix --help) {startup:.2f} s; "
+            f"peak {report['peak_mb']:.0f} MB")
+
+
+# -- the table -----------------------------------------------------------------------
+
+def verdict(value: float, limit: float) -> str:
+    return "ok" if value <= limit else "MISS"
+
+
+def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[float]) -> None:
+    import av
+    import cv2
+
+    print(f"skewfix bench_speed: Python {platform.python_version()}, {os.cpu_count()} cores, PyAV {av.__version__}, "
+          f"OpenCV {cv2.__version__}; fastest of {repeats} alternating run(s) each, every run a fresh process")
+    print(f"machine load (1-minute average) at start and end: {loads[0]:.1f}, {loads[1]:.1f}"
+          + ("  -- other work was running: trust the ratios, not the seconds" if max(loads) > 1.5 else ""))
+    print()
+    print("speed: fix against a plain PyAV decode+encode, same encoder settings "
+          "(H.264: libx264 crf 18 veryfast; ProRes: prores_ks HQ)")
+    head = f"{'clip':34} {'frames':>6} {'plain s':>8} {'fix s':>8} {'fix/plain':>9}  {'target':>7}  {'':4} {'fix fps':>7}"
+    print(head)
+    print("-" * len(head))
+    for key in ("1080", "4k", "prores"):
+        p = pairs[key]
+        mark = "" if p.same_format else "  (outputs differ in format!)"
+        print(f"{p.spec.label:34} {p.spec.frames:6d} {p.plain_s:8.2f} {p.fix_s:8.2f} {p.ratio:8.2f}x  "
+              f"{'<=1.25x':>7}  {verdict(p.ratio, 1.25):4} {p.spec.frames / p.fix_s:7.1f}{mark}")
+    print()
+    print("stages of fix, seconds of wall time in each (decode counts both passes; render threads overlap)")
+    names = ("decode", "track", "fit", "remap", "encode")
+    head = f"{'clip':34} " + " ".join(f"{n:>7}" for n in names) + f" {'total':>7}   per frame: remap  encode"
+    print(head)
+    print("-" * len(head))
+    for key in ("1080", "4k", "prores", "1080long"):
+        p = pairs[key]
+        per = {n: 1e3 * p.stages[n] / p.spec.frames for n in ("remap", "encode")}
+        print(f"{p.spec.label:34} " + " ".join(f"{p.stages[n]:7.2f}" for n in names) + f" {p.fix_s:7.2f}"
+              f"   {per['remap']:13.1f} ms {per['encode']:5.1f} ms")
+    print()
+    short, long = pairs["1080"], pairs["1080long"]
+    growth = long.fix_mb / short.fix_mb
+    print("memory: peak resident set of the whole process (kernel's ru_maxrss)")
+    head = f"{'clip':34} {'frames':>6} {'fix MB':>8} {'plain MB':>9}  {'target':>20}"
+    print(head)
+    print("-" * len(head))
+    print(f"{short.spec.label:34} {short.spec.frames:6d} {short.fix_mb:8.0f} {short.plain_mb:9.0f}  "
+          f"{'<= 700 MB (aim 400)':>20}  {verdict(short.fix_mb, 700)}")
+    print(f"{long.spec.label:34} {long.spec.frames:6d} {long.fix_mb:8.0f} {long.plain_mb:9.0f}  "
+          f"{'<= 1.10x the short':>20}  {verdict(growth, 1.10)} ({growth:.3f}x)")
+    print(f"{'4K fix, for scale':34} {pairs['4k'].spec.frames:6d} {pairs['4k'].fix_mb:8.0f} {pairs['4k'].plain_mb:9.0f}")
+    print()
+    print(f"measure --method flicker --light-hz 100, 24 frames 1080p25: {flicker}")
+
+
+# -- profile ---------------------------------------------------------------------------
+
+def profile_fix(spec: ClipSpec, work: Path, top: int = 18) -> None:
+    """cProfile of one fix, each thread profiled separately (cProfile sees only its own thread)."""
+    import cProfile
+    import pstats
+    import threading
+
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    spec.render()
+    profiles: list[tuple[str, cProfile.Profile]] = []
+    original_run = threading.Thread.run
+
+    def profiled_run(self):
+        prof = cProfile.Profile()
+        profiles.append((self.name, prof))
+        prof.runcall(original_run, self)
+
+    threading.Thread.run = profiled_run
+    main = cProfile.Profile()
+    _, options = ENCODE[spec.codec]
+    try:
+        start = time.perf_counter()
+        main.runcall(fix_clip, str(spec.file), str(work / "profiled.mp4"),
+                     FixOptions(readout=spec.readout, codec=spec.codec, crf=int(options["crf"]),
+                                preset=options["preset"], force=True))
+        wall = time.perf_counter() - start
+    finally:
+        threading.Thread.run = original_run
+    print()
+    print(f"profile: one fix of {spec.label}, {spec.frames} frames, {wall:.2f} s wall")
+    for name, prof in [("main thread (analysis pass, fit, encode+mux)", main)] + profiles:
+        stats = pstats.Stats(prof)
+        stages = {func for (_f, _l, func) in stats.stats if func.endswith("_stage")}
+        if prof is not main:
+            name = f"thread {name} ({', '.join(sorted(stages)) or 'other'})"
+        total = sum(v[2] for v in stats.stats.values())
+        print(f"\n  {name}: {total:.2f} s profiled; top functions by own time (% of the {wall:.2f} s wall)")
+        rows = sorted(stats.stats.items(), key=lambda kv: kv[1][2], reverse=True)[:top]
+        for (file, line, func), (_cc, calls, own, cum, _callers) in rows:
+            where = func if file == "~" else f"{Path(file).name}:{line} {func}"
+            print(f"    {100 * own / wall:5.1f}%  own {own:6.2f} s  cum {cum:6.2f} s  {calls:7d} calls  {where}")
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--quick", action="store_true", help="shorter clips and one repeat (a smoke run)")
+    ap.add_argument("--repeats", type=int, default=None, help="alternating runs of each job (default 2, quick 1)")
+    ap.add_argument("--profile", action="store_true", help="also profile one 1080p fix")
+    argv = sys.argv[1:] if argv is None else list(argv)
+    if argv[:1] == ["--child"]:  # internal: one measured job in a fresh process
+        child_main(*argv[1:])
+        return 0
+    args = ap.parse_args(argv)
+    repeats = args.repeats or (1 if args.quick else 2)
+    specs = clip_specs(args.quick)
+    with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
+        work = Path(tmp)
+        for spec in specs.values():
+            spec.render()
+        loads = [os.getloadavg()[0]]
+        pairs = {key: compare(spec, repeats, work) for key, spec in specs.items()}
+        flicker = flicker_row(work)
+        loads.append(os.getloadavg()[0])
+        print_table(pairs, flicker, repeats, loads)
+        if args.profile:
+            profile_fix(specs["1080"], work)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

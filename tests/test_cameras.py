@@ -1,0 +1,184 @@
+"""Saved cameras: the file round trip, the config folder, and the mode check of fix --readout NAME."""
+
+from __future__ import annotations
+
+import os
+from fractions import Fraction
+from types import SimpleNamespace
+
+import pytest
+
+from skewfix.cameras import (
+    HEADER,
+    camera_path,
+    camera_resolver,
+    cameras_dir,
+    list_cameras,
+    load_camera,
+    remove_camera,
+    save_camera,
+)
+from skewfix.decode import VideoInfo
+from skewfix.errors import InputError, UsageProblem
+from skewfix.measure.result import ReadoutEstimate
+
+
+@pytest.fixture(autouse=True)
+def config_dir(tmp_path, monkeypatch):
+    monkeypatch.setenv("SKEWFIX_CONFIG_DIR", str(tmp_path / "config"))
+    return tmp_path / "config"
+
+
+def video_info(width=3840, height=2160, rate=Fraction(25), path="/clips/wall_100hz.mp4"):
+    return VideoInfo(path=path, width=width, height=height, pix_fmt="yuv420p", bit_depth=8, codec="h264",
+                     profile=None, rate=rate, time_base=Fraction(1, 12800), frame_count=50, duration_s=2.0)
+
+
+def estimate(readout=0.0185, order="top-down", method="flicker", height=2160, interval=0.04):
+    return ReadoutEstimate(readout, 0.00004, order, method, list(range(50)), height, interval,
+                           notes=["bands drift between frames", "a second\nline"])
+
+
+def test_round_trip_keeps_every_field(config_dir):
+    # NTSC-family rates are the exact rationals 24000/1001 and 30000/1001
+    # (SMPTE ST 12-1; from memory): the file must keep the fraction, not 29.97.
+    info = video_info(1920, 1080, Fraction(30000, 1001))
+    path = save_camera("a7s-hd30", estimate(0.0185, height=1080, interval=1001 / 30000), info)
+    assert path == config_dir / "cameras" / "a7s-hd30.camera"
+    text = path.read_text()
+    assert text.splitlines()[0] == HEADER
+    assert "frame_rate: 30000/1001" in text
+    cam = load_camera("a7s-hd30")
+    assert cam.name == "a7s-hd30"
+    assert cam.readout_s == pytest.approx(0.0185, abs=1e-10)
+    assert cam.uncertainty_s == pytest.approx(0.00004, abs=1e-10)
+    assert cam.line_delay_s == pytest.approx(0.0185 / 1080, rel=1e-4)
+    assert cam.line_order == "top-down" and cam.method == "flicker"
+    assert (cam.width, cam.height) == (1920, 1080)
+    assert cam.frame_rate == Fraction(30000, 1001)
+    assert cam.clip == "wall_100hz.mp4"
+    assert cam.measured and cam.measured[:4].isdigit()
+    assert cam.notes == ["bands drift between frames", "a second line"]  # one line per note
+
+
+def test_list_and_remove(config_dir):
+    assert list_cameras() == []
+    save_camera("zeta", estimate(0.010), video_info())
+    save_camera("alpha", estimate(0.020, "bottom-up", "pan"), video_info())
+    assert [c.name for c in list_cameras()] == ["alpha", "zeta"]
+    removed = remove_camera("zeta")
+    assert not removed.exists()
+    assert [c.name for c in list_cameras()] == ["alpha"]
+    with pytest.raises(UsageProblem, match="no saved camera called 'zeta'"):
+        remove_camera("zeta")
+    with pytest.raises(UsageProblem, match="no saved camera"):
+        load_camera("zeta")
+
+
+def test_saving_again_replaces_and_leaves_no_temporary_files(config_dir):
+    save_camera("body", estimate(0.010), video_info())
+    save_camera("body", estimate(0.012), video_info())
+    assert load_camera("body").readout_s == pytest.approx(0.012)
+    assert sorted(os.listdir(config_dir / "cameras")) == ["body.camera"]
+    # written with the usual permissions, not a temporary file's private ones (common practice)
+    mask = os.umask(0)
+    os.umask(mask)
+    assert (config_dir / "cameras" / "body.camera").stat().st_mode & 0o777 == 0o666 & ~mask
+
+
+def test_config_folder_follows_xdg_then_home(monkeypatch, tmp_path):
+    # XDG Base Directory Specification: $XDG_CONFIG_HOME, else ~/.config
+    # (absolute paths only; a relative one is ignored).
+    monkeypatch.delenv("SKEWFIX_CONFIG_DIR")
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "xdg"))
+    assert cameras_dir() == tmp_path / "xdg" / "skewfix" / "cameras"
+    monkeypatch.setenv("XDG_CONFIG_HOME", "relative/dir")
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    assert cameras_dir() == tmp_path / "home" / ".config" / "skewfix" / "cameras"
+    monkeypatch.delenv("XDG_CONFIG_HOME")
+    assert cameras_dir() == tmp_path / "home" / ".config" / "skewfix" / "cameras"
+
+
+def test_hand_edited_file_is_read(config_dir):
+    folder = config_dir / "cameras"
+    folder.mkdir(parents=True)
+    (folder / "old-body.camera").write_text(
+        "# written by hand\n\nskewfix camera v1\n# the readout from the maker's sheet\n"
+        "readout_ms:   21.5\nline_order: bottom-up\nframe_rate: 24000/1001\nlens: 35mm\n"
+        "note: first note\nnote: second note\n")
+    cam = load_camera("old-body")
+    assert cam.readout_s == pytest.approx(0.0215)
+    assert cam.line_order == "bottom-up"
+    assert cam.frame_rate == Fraction(24000, 1001)
+    assert cam.width is None and cam.notes == ["first note", "second note"]
+
+
+@pytest.mark.parametrize("text, problem", [
+    ("readout_ms: 18\n", "header"),
+    ("skewfix camera v9\nreadout_ms: 18\n", "format"),
+    ("skewfix camera v1\nline_order: top-down\n", "readout_ms is missing"),
+    ("skewfix camera v1\nreadout_ms: fast\n", "not a number"),
+    ("skewfix camera v1\nreadout_ms: 18\nreadout_ms: 19\n", "line 3"),
+    ("skewfix camera v1\nreadout_ms: 18\nline_order: sideways\n", "line_order"),
+    ("skewfix camera v1\nreadout_ms 18\n", "line 2"),
+])
+def test_malformed_files_give_one_line(config_dir, text, problem):
+    folder = config_dir / "cameras"
+    folder.mkdir(parents=True)
+    (folder / "broken.camera").write_text(text)
+    with pytest.raises(InputError) as info:
+        load_camera("broken")
+    assert problem in str(info.value) and "\n" not in str(info.value)
+    problems: list = []
+    assert list_cameras(problems) == [] and problems[0][0] == "broken"
+
+
+@pytest.mark.parametrize("name", ["", "../escape", "a/b", "auto", "AUTO", "1080p", ".hidden", "x" * 65, "sp ace"])
+def test_bad_names_are_refused(name):
+    with pytest.raises(UsageProblem, match="camera name"):
+        camera_path(name)
+
+
+def test_unknown_camera_for_fix_readout():
+    with pytest.raises(UsageProblem) as info:
+        camera_resolver("nosuch", None)
+    assert str(info.value) == "not a duration or a saved camera: nosuch (skewfix cameras list shows saved ones)"
+
+
+def test_resolver_warns_when_the_mode_differs():
+    save_camera("a7s-4k25", estimate(0.0185), video_info(3840, 2160, Fraction(25)))
+    readout, order, origin, resolver = camera_resolver("a7s-4k25", None)
+    assert readout == pytest.approx(0.0185, abs=1e-10) and order == "top-down"
+    same = SimpleNamespace(info=video_info(3840, 2160, Fraction(25)))
+    r, o, text = resolver(same)
+    assert r == pytest.approx(0.0185, abs=1e-10) and o == "top-down"
+    assert "a7s-4k25" in text and "differ" not in text
+    smaller = SimpleNamespace(info=video_info(1920, 1080, Fraction(25)))
+    _, _, text = resolver(smaller)
+    assert "3840x2160" in text and "1920x1080" in text and "resolution differs" in text
+    faster = SimpleNamespace(info=video_info(3840, 2160, Fraction(50)))
+    assert "frame rate differs" in resolver(faster)[2]
+    both = SimpleNamespace(info=video_info(1920, 1080, Fraction(30000, 1001)))
+    assert "resolution and frame rate differ" in resolver(both)[2]
+
+
+def test_line_order_from_the_command_line_wins():
+    save_camera("upside", estimate(0.02, "bottom-up"), video_info())
+    _, order, origin, resolver = camera_resolver("upside", None)
+    assert order == "bottom-up"
+    _, order, origin, resolver = camera_resolver("upside", "top-down")
+    assert order == "top-down" and "overrides" in origin
+    save_camera("unsure", estimate(0.02, "undetermined"), video_info())
+    _, order, origin, _ = camera_resolver("unsure", None)
+    assert order == "top-down" and "assumed" in origin
+
+
+def test_fix_readout_plan_routes_names_to_saved_cameras():
+    from skewfix.cli.fix import readout_plan
+
+    save_camera("rig-b", estimate(0.0123), video_info())
+    seconds, order, origin, resolver = readout_plan("rig-b", None)
+    assert seconds == pytest.approx(0.0123, abs=1e-10) and resolver is not None
+    assert readout_plan("12.3ms", None)[0] == pytest.approx(0.0123)  # a duration stays a duration
+    with pytest.raises(UsageProblem, match="not a duration or a saved camera"):
+        readout_plan("rig-c", None)
