@@ -76,9 +76,9 @@ def main(argv=None):
         rows = [
             scenario("whip pan 23.976 fps, 19 ms, 175 px/frame", WhipPan(peak_px_s=175 * 24000 / 1001, centre_s=n / 2 / 23.976,
                      duration_s=0.9), Fraction(24000, 1001), 0.019, n, tmp),
-            scenario("handheld 30 fps, 24 ms, 7-11 Hz + roll", Handheld(amplitude_px=7.0, roll_rad=0.01),
+            scenario("handheld 30 fps, 24 ms, 7-11 Hz + roll", Handheld(amplitude_px=10.0, roll_rad=0.01),
                      Fraction(30), 0.024, n, tmp),
-            scenario("handheld, translation-only model", Handheld(amplitude_px=7.0, roll_rad=0.01),
+            scenario("handheld, translation-only model", Handheld(amplitude_px=10.0, roll_rad=0.01),
                      Fraction(30), 0.024, n, tmp, fit=FitSettings(model="translation")),
             scenario("global shutter 25 fps, fast pan, audio", SteadyPan(vx_px_s=2500.0), Fraction(25), 0.0, n, tmp),
         ]

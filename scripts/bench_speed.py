@@ -287,7 +287,7 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
     print()
     short, long = pairs["1080"], pairs["1080long"]
     growth = long.fix_mb / short.fix_mb
-    print("memory: peak resident set of the whole process (kernel's ru_maxrss)")
+    print("memory: peak resident set of the whole child process (Linux VmHWM)")
     head = f"{'clip':34} {'frames':>6} {'fix MB':>8} {'plain MB':>9}  {'target':>20}"
     print(head)
     print("-" * len(head))
@@ -302,8 +302,29 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
 
 # -- profile ---------------------------------------------------------------------------
 
-def profile_fix(spec: ClipSpec, work: Path, top: int = 18) -> None:
-    """cProfile of one fix, each thread profiled separately (cProfile sees only its own thread)."""
+# Where fix spends its time: (label, file, function), each read as cumulative time per thread.
+BREAKDOWN = (
+    ("decode (demux, decode, plane copies)", "decode.py", "demux"),
+    ("track (proxy, features, LK, phase corr.)", "track.py", "push"),
+    ("fit the motion splines", "motion.py", "fit_motion"),
+    ("warp maps on the coarse grid", "warp.py", "correction_map"),
+    ("upsample maps to each plane", "warp.py", "full"),
+    ("remap planes (cv2.remap)", "warp.py", "remap_plane"),
+    ("planes into an av.VideoFrame", "encode.py", "fill_frame"),
+    ("encode and mux", "encode.py", "write_frame"),
+    ("flush the encoder, close, rename", "encode.py", "finish"),
+    ("open input/output, probe", "encode.py", "__init__"),
+    ("wait: queue get", "queue.py", "get"),
+    ("wait: queue put", "queue.py", "put"),
+)
+
+
+def cumulative(stats, file: str, func: str) -> float:
+    return sum(v[3] for (f, _line, name), v in stats.stats.items() if name == func and Path(f).name == file)
+
+
+def profile_fix(spec: ClipSpec, work: Path, top: int = 12) -> None:
+    """cProfile of one fix with every Python thread profiled on its own (cProfile sees one thread)."""
     import cProfile
     import pstats
     import threading
@@ -311,38 +332,45 @@ def profile_fix(spec: ClipSpec, work: Path, top: int = 18) -> None:
     from skewfix.pipeline import FixOptions, fix_clip
 
     spec.render()
-    profiles: list[tuple[str, cProfile.Profile]] = []
+    profiles: list[cProfile.Profile] = []
     original_run = threading.Thread.run
 
     def profiled_run(self):
         prof = cProfile.Profile()
-        profiles.append((self.name, prof))
+        profiles.append(prof)
         prof.runcall(original_run, self)
 
     threading.Thread.run = profiled_run
-    main = cProfile.Profile()
+    main_prof = cProfile.Profile()
     _, options = ENCODE[spec.codec]
     try:
         start = time.perf_counter()
-        main.runcall(fix_clip, str(spec.file), str(work / "profiled.mp4"),
-                     FixOptions(readout=spec.readout, codec=spec.codec, crf=int(options["crf"]),
-                                preset=options["preset"], force=True))
+        main_prof.runcall(fix_clip, str(spec.file), str(work / "profiled.mp4"),
+                          FixOptions(readout=spec.readout, codec=spec.codec, crf=int(options["crf"]),
+                                     preset=options["preset"], force=True))
         wall = time.perf_counter() - start
     finally:
         threading.Thread.run = original_run
     print()
-    print(f"profile: one fix of {spec.label}, {spec.frames} frames, {wall:.2f} s wall")
-    for name, prof in [("main thread (analysis pass, fit, encode+mux)", main)] + profiles:
-        stats = pstats.Stats(prof)
-        stages = {func for (_f, _l, func) in stats.stats if func.endswith("_stage")}
-        if prof is not main:
-            name = f"thread {name} ({', '.join(sorted(stages)) or 'other'})"
-        total = sum(v[2] for v in stats.stats.values())
-        print(f"\n  {name}: {total:.2f} s profiled; top functions by own time (% of the {wall:.2f} s wall)")
-        rows = sorted(stats.stats.items(), key=lambda kv: kv[1][2], reverse=True)[:top]
-        for (file, line, func), (_cc, calls, own, cum, _callers) in rows:
-            where = func if file == "~" else f"{Path(file).name}:{line} {func}"
-            print(f"    {100 * own / wall:5.1f}%  own {own:6.2f} s  cum {cum:6.2f} s  {calls:7d} calls  {where}")
+    print(f"profile: one fix of {spec.label}, {spec.frames} frames, {wall:.2f} s wall, in-process, cProfile per thread")
+    threads = [("main", pstats.Stats(main_prof))] + [(f"thread {i + 1}", pstats.Stats(p))
+                                                      for i, p in enumerate(profiles)]
+    print(f"  {'thread':9} {'where (cumulative, nested rows overlap)':42} {'s':>7} {'% wall':>7}")
+    for name, stats in threads:
+        for label, file, func in BREAKDOWN:
+            seconds = cumulative(stats, file, func)
+            if seconds >= 0.005 * wall:
+                print(f"  {name:9} {label:42} {seconds:7.2f} {100 * seconds / wall:6.1f}%")
+    merged = pstats.Stats(main_prof)
+    for p in profiles:
+        merged.add(p)
+    print(f"  top {top} functions by own time, all threads together (% of wall; threads overlap):")
+    rows = sorted(merged.stats.items(), key=lambda kv: kv[1][2], reverse=True)[:top]
+    for (file, line, func), (_cc, calls, own, _cum, _callers) in rows:
+        where = func if file == "~" else f"{Path(file).name}:{line} {func}"
+        if "acquire" in func and "lock" in func:
+            where += "  (threads waiting for each other)"
+        print(f"    {100 * own / wall:5.1f}%  {own:6.2f} s  {calls:6d} calls  {where}")
 
 
 def main(argv=None):

@@ -5,8 +5,9 @@ Each frame's luma is reduced to a proxy (longest side at most
 
 1. seed the global shift with phase correlation (Kuglin & Hines, 1975), so
    that whip pans of well over 100 px per frame are caught;
-2. refine corner features (Shi & Tomasi, 1994) with pyramidal Lucas-Kanade
-   (Bouguet, 2000), starting from the seed;
+2. refine corner features (FAST corners, Rosten & Drummond, 2006, kept
+   evenly spread by taking the strongest few in each cell of a grid) with
+   pyramidal Lucas-Kanade (Bouguet, 2000), starting from the seed;
 3. keep only tracks that survive a forward-backward check (Kalal et al., 2010).
 
 Coordinates returned are in full-resolution stored pixels. A pair with too few
@@ -39,8 +40,9 @@ def luma_proxy(luma: np.ndarray, bit_depth: int, proxy_size: int) -> tuple[np.nd
 @dataclass
 class TrackerSettings:
     proxy_size: int = 960
-    max_features: int = 500
-    min_distance: int = 12
+    grid: tuple[int, int] = (16, 9)  # cells across and down for spreading features
+    per_cell: int = 2
+    fast_threshold: int = 12
     window: int = 21
     levels: int = 3
     fb_threshold: float = 0.5  # proxy px
@@ -91,11 +93,9 @@ class PairTracker:
 
     def _track(self, prev: np.ndarray, cur: np.ndarray):
         s = self.settings
-        pts = cv2.goodFeaturesToTrack(prev, maxCorners=s.max_features, qualityLevel=0.01,
-                                      minDistance=s.min_distance, blockSize=7)
-        if pts is None or len(pts) < s.min_tracks:
+        pts = spread_corners(prev, s.grid, s.per_cell, s.fast_threshold)
+        if len(pts) < s.min_tracks:
             return np.zeros((0, 2)), np.zeros((0, 2))
-        pts = pts.reshape(-1, 2).astype(np.float32)
         seed = phase_shift(prev, cur)
         guess = pts + np.float32(seed)
         lk = dict(winSize=(s.window, s.window), maxLevel=s.levels,
@@ -109,13 +109,52 @@ class PairTracker:
         return pts[ok], fwd[ok]
 
 
+_FAST = {}
+
+
+def spread_corners(img: np.ndarray, grid=(16, 9), per_cell: int = 2, threshold: int = 12) -> np.ndarray:
+    """FAST corners, the ``per_cell`` strongest in each grid cell (float32, (n, 2)).
+
+    Spreading matters twice here: every image row band must be sampled (rows
+    are clocks), and one busy region must not outvote the rest.
+    """
+    detector = _FAST.get(threshold)
+    if detector is None:
+        detector = _FAST[threshold] = cv2.FastFeatureDetector_create(threshold=threshold, nonmaxSuppression=True)
+    keypoints = detector.detect(img, None)
+    if not keypoints:
+        return np.zeros((0, 2), np.float32)
+    pts = np.array([kp.pt for kp in keypoints], np.float32)
+    response = np.array([kp.response for kp in keypoints], np.float32)
+    h, w = img.shape[:2]
+    border = 8  # keep the LK window inside the picture
+    keep = (pts[:, 0] >= border) & (pts[:, 0] < w - border) & (pts[:, 1] >= border) & (pts[:, 1] < h - border)
+    pts, response = pts[keep], response[keep]
+    cell = (np.minimum((pts[:, 1] * grid[1] / h).astype(int), grid[1] - 1) * grid[0]
+            + np.minimum((pts[:, 0] * grid[0] / w).astype(int), grid[0] - 1))
+    order = np.lexsort((-response, cell))
+    cell_sorted = cell[order]
+    rank = np.arange(len(order)) - np.searchsorted(cell_sorted, cell_sorted, side="left")
+    return pts[order[rank < per_cell]]
+
+
 def phase_shift(prev: np.ndarray, cur: np.ndarray) -> tuple[float, float]:
     """Global shift (dx, dy) with ``cur(x + dx) ~ prev(x)``, by phase correlation.
 
-    Computed at half the proxy size with a Hann window (cv2.phaseCorrelate).
+    Computed at a quarter of the proxy size with a Hann window
+    (cv2.phaseCorrelate): a coarse seed is all Lucas-Kanade needs.
     """
-    small_prev = cv2.pyrDown(prev).astype(np.float32)
-    small_cur = cv2.pyrDown(cur).astype(np.float32)
-    window = cv2.createHanningWindow(small_prev.shape[::-1], cv2.CV_32F)
+    small_prev = cv2.resize(prev, None, fx=0.25, fy=0.25, interpolation=cv2.INTER_AREA).astype(np.float32)
+    small_cur = cv2.resize(cur, None, fx=0.25, fy=0.25, interpolation=cv2.INTER_AREA).astype(np.float32)
+    window = _hann(small_prev.shape)
     (dx, dy), _ = cv2.phaseCorrelate(small_prev, small_cur, window)
-    return 2.0 * dx, 2.0 * dy
+    return 4.0 * dx, 4.0 * dy
+
+
+_HANN = {}
+
+
+def _hann(shape):
+    if shape not in _HANN:
+        _HANN[shape] = cv2.createHanningWindow(shape[::-1], cv2.CV_32F)
+    return _HANN[shape]

@@ -5,13 +5,15 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import sys
+import types
 from fractions import Fraction
 
 import pytest
 
 from skewfix.cli import main
 from skewfix.cli.measure import frame_ranges, parse_exposure
-from skewfix.errors import UsageProblem
+from skewfix.errors import MeasurementRefused, UsageProblem
 from skewfix.synth.edges import render_pan_clip
 from skewfix.synth.paths import Still
 
@@ -82,16 +84,42 @@ def test_pan_measure_writes_json_plot_and_camera(clips, tmp_path, capsys, config
     assert "no saved camera" in one_error_line(capsys)
 
 
-def test_auto_falls_back_to_pan_on_a_steady_pan(clips, tmp_path, capsys):
-    # DESIGN.md: constant-velocity motion cannot reveal the readout, so the
-    # motion method must refuse and auto must move on to the pan method.
+@pytest.fixture
+def motion_refuses(monkeypatch):
+    """Stand-in for the motion method that refuses, as DESIGN.md requires on a
+    constant-velocity pan (the real method is tested in its own file)."""
+    fake = types.ModuleType("skewfix.measure.selfcal")
+
+    def measure_motion(analysis, line_order=None):
+        raise MeasurementRefused("the motion is too steady to reveal the readout")
+
+    fake.measure_motion = measure_motion
+    monkeypatch.setitem(sys.modules, "skewfix.measure.selfcal", fake)
+
+
+def test_auto_falls_back_to_pan_and_says_why(clips, tmp_path, capsys, motion_refuses):
     out_json = tmp_path / "auto.json"
     rc = main(["measure", clips["pan"], "--json", str(out_json)])
     captured = capsys.readouterr()
     assert rc == 0, captured.err
-    data = json.loads(out_json.read_text())
-    assert data["method"] == "pan"
-    assert "motion" in captured.err  # says why motion did not measure it
+    assert json.loads(out_json.read_text())["method"] == "pan"
+    assert "motion could not: the motion is too steady" in captured.err
+
+
+def test_auto_tries_flicker_first_when_a_light_is_given(clips, tmp_path, capsys, motion_refuses):
+    # a bar chart under steady light has no flicker bands: flicker refuses, then motion, then pan
+    out_json = tmp_path / "auto.json"
+    rc = main(["measure", clips["pan"], "--light-hz", "100", "--json", str(out_json)])
+    captured = capsys.readouterr()
+    assert rc == 0, captured.err
+    assert json.loads(out_json.read_text())["method"] == "pan"
+    assert "flicker could not" in captured.err and "motion could not" in captured.err
+
+
+def test_auto_refusal_names_every_method(clips, capsys, motion_refuses):
+    assert main(["measure", clips["still"], "--quiet"]) == 1
+    line = one_error_line(capsys)
+    assert "no method could measure this clip" in line and "motion:" in line and "pan:" in line
 
 
 def test_quiet_prints_one_line(clips, capsys):

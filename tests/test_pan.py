@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from skewfix.errors import MeasurementRefused
-from skewfix.measure.pan import frame_slant, measure_pan, plot_pan, profile_shift
+from skewfix.measure.pan import frame_slant, measure_pan, pair_speeds, plot_pan, profile_shift
 from skewfix.synth.edges import render_pan_clip, vertical_edges_scene
 from skewfix.synth.paths import Still
 
@@ -73,6 +73,27 @@ def test_frame_slant_of_a_sheared_chart_matches_scipy_affine():
         assert bands >= 10 and stderr < 0.002
 
 
+def test_pair_speeds_use_each_pairs_own_interval():
+    # DESIGN.md: frame times come from timestamps (phones write variable frame
+    # rates), so a pair 50 ms apart that moved 45 px went 900 px/s.
+    from types import SimpleNamespace
+
+    from skewfix.motion import PairObservations
+
+    times = np.array([0.0, 0.033, 0.083, 0.116])
+    p0 = np.column_stack([np.linspace(10, 300, 20), np.linspace(5, 170, 20)])
+    moved = [p0 + [29.7, 0.0], p0 + [45.0, 0.0]]
+    moved[1][:3, 0] += 80.0  # a few tracks on something moving on its own: the median ignores them
+    pairs = [PairObservations(0, p0, moved[0]), PairObservations(1, p0, moved[1]),
+             PairObservations(2, np.zeros((0, 2)), np.zeros((0, 2)))]
+    analysis = SimpleNamespace(n_frames=4, frame_times=times, pairs=pairs)
+    speeds = pair_speeds(analysis, band_shifts={1: 1.0, 2: 29.7})
+    assert speeds[0] == pytest.approx(900.0)
+    assert speeds[1] == pytest.approx(900.0)  # tracks win over the band shift
+    assert speeds[2] == pytest.approx(900.0)  # no tracks: the band shift over 33 ms
+    assert np.isnan(pair_speeds(analysis)[2])
+
+
 @pytest.mark.parametrize("speed, readout, order", [
     (900.0, 0.020, "top-down"),
     (-1500.0, 0.015, "top-down"),
@@ -109,9 +130,19 @@ def test_both_ways_pan_cancels_a_tilted_target(pan_clip):
     # the target adds tilt * H / |v| to the readout (about 3.5 ms here)
     one_way, _, _ = pan_clip([900.0], readout, tilt_deg=1.0)
     biased = measure_pan(one_way)
-    assert not biased.diagnostics["both_ways"]
+    assert not biased.diagnostics["tilt_fitted"]
     expected_bias = abs(tilt) * H / 900.0
     assert abs(biased.readout_s - readout) == pytest.approx(expected_bias, rel=0.15)
+
+
+def test_one_way_pan_at_two_speeds_also_cancels_the_tilt(pan_clip):
+    # slant = tilt + v * readout / H: two speeds a factor 3 apart separate the two terms
+    readout = 0.020
+    path, _, _ = pan_clip([300.0, 900.0], readout, tilt_deg=1.0, n_frames=30)
+    est = measure_pan(path)
+    assert est.diagnostics["tilt_fitted"] and not est.diagnostics["both_ways"]
+    assert est.readout_s == pytest.approx(readout, rel=0.03)
+    assert est.diagnostics["tilt_px_per_row"] == pytest.approx(-math.tan(math.radians(1.0)), rel=0.15)
 
 
 def test_skew_grows_linearly_with_readout(pan_clip):

@@ -24,6 +24,7 @@ app = typer.Typer(
 )
 
 _STATE = {"debug": False}
+INTERRUPTED = 130  # the shell's status for a run stopped by SIGINT (128 + 2; common practice)
 
 
 @app.callback()
@@ -73,7 +74,7 @@ def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv or os.environ.get("SKEWFIX_DEBUG") == "1"
     try:
-        app(args=argv, prog_name="skewfix", standalone_mode=False)
+        status = app(args=argv, prog_name="skewfix", standalone_mode=False)
     except SkewfixError as exc:
         if debug:
             raise
@@ -87,14 +88,10 @@ def main(argv: list[str] | None = None) -> int:
         hint = f" (see 'skewfix {exc.ctx.info_name if exc.ctx and exc.ctx.parent else ''} --help')".replace("  ", " ")
         typer.echo(f"skewfix: {exc.format_message()}{hint}", err=True)
         return 2
-    except getattr(click, "Abort", KeyboardInterrupt):
-        typer.echo("skewfix: stopped; nothing was written", err=True)
-        return 130
+    except (getattr(click, "Abort", KeyboardInterrupt), KeyboardInterrupt):
+        status = INTERRUPTED
     except BrokenPipeError:  # e.g. `skewfix --help | head`
         return 0
-    except KeyboardInterrupt:
-        typer.echo("skewfix: stopped; nothing was written", err=True)
-        return 130
     except SystemExit as exc:
         return int(exc.code or 0) if not isinstance(exc.code, str) else 1
     except Exception as exc:  # last resort: still one line, never a traceback
@@ -103,4 +100,7 @@ def main(argv: list[str] | None = None) -> int:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
         typer.echo(f"skewfix: unexpected {type(exc).__name__}: {first} (run with --debug for details)", err=True)
         return 1
-    return 0
+    if status == INTERRUPTED:  # recent typer turns Ctrl-C into an exit status of 130 and returns it
+        typer.echo("skewfix: stopped; nothing was written", err=True)
+        return INTERRUPTED
+    return status if type(status) is int else 0  # an exit status a command raised (typer.Exit)

@@ -27,18 +27,15 @@ SAFETY_TEXT = (
     "light rigs are for qualified hands: follow your local electrical codes and licensed practice."
 )
 
-HELP = f"""Measure the readout time (first to last row) of the camera mode that shot CLIP.
-
-Methods: 'flicker' for a steady shot of a plain, evenly lit wall under a flickering
-light (give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, or an LED
-driver's rate; shoot at a fast shutter); 'pan' for steady pans across vertical
-edges, ideally one way and back; 'motion' for ordinary footage whose motion
-changes (whip pans that speed up and stop, handheld). 'auto' (the default) tries
-flicker when --light-hz is given, then motion, then pan, and says why the others
-could not measure the clip.
-
-{SAFETY_TEXT}
-"""
+HELP = (
+    "Measure the readout time (first to last row) of the camera mode that shot CLIP.\n\n"
+    "Methods: 'flicker' for a steady shot of a plain, evenly lit wall under a flickering light "
+    "(give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, or an LED driver's rate; "
+    "shoot at a fast shutter); 'pan' for steady pans across vertical edges, ideally one way and "
+    "back; 'motion' for ordinary footage whose motion changes (whip pans that speed up and stop, "
+    "handheld). 'auto' (the default) tries flicker when --light-hz is given, then motion, then "
+    "pan, and says why the others could not measure the clip.\n\n" + SAFETY_TEXT
+)
 
 _SHUTTER = re.compile(r"^\s*1\s*/\s*([0-9]*\.?[0-9]+)\s*(s)?\s*$")
 

@@ -207,6 +207,9 @@ class FixDeliverables:
         from skewfix.warp import reskew_map
 
         said = []
+        if self.border == "crop" and (self.motion or self.maps_dir):
+            result.notes.append("the motion file and reskew maps describe the correction without the crop "
+                                "enlargement; reskew plates corrected with --border edge or black")
         try:
             if self.motion is not None:
                 save_motion(self.motion, result.model, result.clock, self.reference_line, result.info)

@@ -19,9 +19,10 @@ to ``k + 1`` on the same row moved ``u * (t_{k+1} - t_k)``.
 3. frames are kept where the speed is steady (both neighbouring pairs agree)
    in runs of at least a few frames;
 4. one line through (speed, slant) over the kept frames, weighted least
-   squares: ``slant = tilt + sign * u * readout / H``. A one-way pan cannot
-   tell a tilted target from skew, so the tilt is taken as 0; pans both ways
-   fit the tilt and cancel it. The sign of the slope gives the line order.
+   squares: ``slant = tilt + sign * u * readout / H``. A pan at one speed
+   cannot tell a tilted target from skew, so the tilt is taken as 0; pans
+   both ways (or one way at speeds a factor 2 or more apart) fit the tilt and
+   cancel it. The sign of the slope gives the line order.
 """
 
 from __future__ import annotations
@@ -239,6 +240,15 @@ def steady_frames(speeds: np.ndarray, frame_times: np.ndarray) -> tuple[np.ndarr
 # ----------------------------------------------------------------------------
 # the joint fit
 # ----------------------------------------------------------------------------
+def _tilt_separable(u: np.ndarray) -> tuple[bool, bool]:
+    """(tilt can be fitted, panned both ways): the tilt is told from skew by
+    frames panned both ways, or one way at speeds at least a factor 2 apart."""
+    both = int(np.sum(u > 0)) >= _MIN_RUN and int(np.sum(u < 0)) >= _MIN_RUN
+    speed = np.abs(u)
+    slow = int(np.sum(speed <= 0.5 * speed.max()))
+    return both or (slow >= _MIN_RUN and len(u) - slow >= _MIN_RUN), both
+
+
 def _weighted_line(u, s, w, with_tilt: bool):
     """Weighted least squares ``s = tilt + slope * u``; returns (slope, tilt, covariance, residuals)."""
     cols = [u, np.ones_like(u)] if with_tilt else [u]
@@ -282,10 +292,9 @@ def _speed_band_shifts(path: str, analysis, fps):
             luma = frame.luma
             s, se, _ = frame_slant(luma)
             slants[k], stderrs[k] = s, se
-            h = luma.shape[0]
-            rows = _band_rows(h)
-            top = (h - rows) // 2
-            mid = np.diff(np.asarray(luma[top:top + rows], dtype=np.float64).mean(axis=0))
+            rows = _band_rows(luma.shape[0])
+            top = (luma.shape[0] - rows) // 2
+            mid = _band_edge_profiles(luma[top:top + rows], rows)[1][0]
             if prev_mid is not None:
                 d, score = profile_shift(prev_mid, mid)
                 mid_shifts[k - 1] = d if score >= _MIN_BAND_SCORE else float("nan")
@@ -304,7 +313,7 @@ def _no_pan_message(speeds, analysis) -> str:
         if fastest >= _MIN_SHIFT_PER_FRAME_PX:
             seen += f", never at one speed (within {_STEADY_TOLERANCE:.0%}) for long enough"
     hint = ""
-    if analysis.info.rotation in (90, 270, -90):
+    if abs(int(analysis.info.rotation or 0)) % 180 == 90:
         hint = (" (this clip is stored rotated by 90 degrees: the sensor rows run up and down "
                 "the screen, so pan along them, vertically on screen, across edges square to them)")
     return (f"no steady pan found ({seen}): the pan method needs at least {_MIN_FRAMES} frames in runs of "
@@ -351,9 +360,9 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
     frames, u, s, se = frames[good], frame_speed[good], s[good], se[good]
     notes: list[str] = []
 
-    both_ways = int(np.sum(u > 0)) >= _MIN_RUN and int(np.sum(u < 0)) >= _MIN_RUN
+    with_tilt, both_ways = _tilt_separable(u)
     w = 1.0 / np.maximum(se, 0.5 * float(np.median(se))) ** 2
-    slope, tilt, cov, resid = _weighted_line(u, s, w, both_ways)
+    slope, tilt, cov, resid = _weighted_line(u, s, w, with_tilt)
     # frames that do not fit at all (a bump, a passer-by): one pass, common practice
     spread = 1.4826 * float(np.median(np.abs(resid))) + 1e-9
     bad = np.abs(resid) > 5.0 * spread + 3.0 * se
@@ -361,25 +370,27 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
         notes.append(f"{int(bad.sum())} frame(s) left out for not fitting the others: "
                      f"{', '.join(map(str, frames[bad][:12]))}")
         frames, u, s, se, w = frames[~bad], u[~bad], s[~bad], se[~bad], w[~bad]
-        both_ways = int(np.sum(u > 0)) >= _MIN_RUN and int(np.sum(u < 0)) >= _MIN_RUN
-        slope, tilt, cov, resid = _weighted_line(u, s, w, both_ways)
+        with_tilt, both_ways = _tilt_separable(u)
+        slope, tilt, cov, resid = _weighted_line(u, s, w, with_tilt)
     sigma_slope = math.sqrt(float(cov[0, 0]))
 
     readout = abs(slope) * height
     sigma = math.hypot(sigma_slope * height, _SYSTEMATIC_FRACTION * readout)
     if abs(slope) >= _SIGNIFICANCE * sigma_slope:
         order = "top-down" if slope > 0 else "bottom-up"
-        notes.append(f"line order {order}: the lean follows the pan direction that way")
+        notes.append(f"line order {order}: from the way the picture leans against the way it moves")
     else:
         order = "undetermined"
         notes.append(f"no lean above the noise: a global shutter, or a readout under about "
                      f"{_SIGNIFICANCE * sigma * 1e3:.2g} ms; line order undetermined")
-    if both_ways:
-        notes.append(f"panned both ways: a target tilt of {tilt:+.4f} px per row "
+    if with_tilt:
+        how = "panned both ways" if both_ways else (
+            f"panned at {np.abs(u).min():.0f} to {np.abs(u).max():.0f} px/s")
+        notes.append(f"{how}: a target tilt of {tilt:+.4f} px per row "
                      f"({math.degrees(math.atan(tilt)):+.3f} degrees) was fitted and cancelled")
     else:
-        notes.append("one-way pan: the edges were taken as truly vertical; a tilted target would bias "
-                     "the result, so pan both ways to cancel it")
+        notes.append("panned one way at one speed: the edges were taken as truly vertical; a tilted "
+                     "target would bias the result, so pan both ways to cancel it")
     if readout - 3 * sigma > interval:
         raise MeasurementRefused(
             f"the lean implies a readout of {readout * 1e3:.1f} ms, longer than the frame interval "
@@ -389,7 +400,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
         notes.append("the result is longer than the frame interval, within its uncertainty")
 
     sign = -1.0 if order == "bottom-up" else 1.0
-    candidates, residuals = _residual_curve(u, s, w, height, sign, both_ways,
+    candidates, residuals = _residual_curve(u, s, w, height, sign, with_tilt,
                                             max(interval, 1.5 * readout), readout)
     diagnostics = {
         "candidates_ms": candidates,
@@ -402,6 +413,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
         "slope_s_per_row": slope,
         "tilt_px_per_row": tilt,
         "both_ways": both_ways,
+        "tilt_fitted": with_tilt,
     }
     return ReadoutEstimate(readout, sigma, order, "pan", [int(k) for k in frames], height,
                            float(interval), diagnostics, notes)
