@@ -49,6 +49,8 @@ def choose_encoder(info: VideoInfo, codec: str | None) -> tuple[str, str | None]
         if key not in CODECS:
             raise UsageProblem(f"unknown codec {codec!r}: choose one of {', '.join(CODECS)}")
         return CODECS[key], None
+    if info.is_sequence:
+        return FALLBACK_ENCODER, f"an image sequence has no video codec to match; writing H.264 ({FALLBACK_ENCODER})"
     wanted = _MATCHING_ENCODER.get(info.codec)
     if wanted and encoder_available(wanted):
         return wanted, None

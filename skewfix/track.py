@@ -11,8 +11,8 @@ Each frame's luma is reduced to a proxy (longest side at most
 3. keep only tracks that survive a forward-backward check (Kalal et al., 2010).
 
 Coordinates returned are in full-resolution stored pixels. A pair with too few
-surviving tracks is "unmeasured" (blur, black frames); a pair whose luma
-histograms also disagree strongly is treated as a cut.
+surviving tracks is "unmeasured" (blur, black frames); such a pair between two
+pictures that both have plenty of detail is treated as a cut.
 """
 
 from __future__ import annotations
@@ -52,10 +52,11 @@ class TrackerSettings:
 class PairTracker:
     """Feeds frames one at a time; returns the tracks to the previous frame."""
 
+    DETAILED = 4  # a picture with this many times ``min_tracks`` corners has detail to track
+
     def __init__(self, settings: TrackerSettings | None = None):
         self.settings = settings or TrackerSettings()
         self._prev = None
-        self._prev_hist = None
         self._scale = 1.0
         self._full_shape = None
         self.index = -1
@@ -74,22 +75,27 @@ class PairTracker:
         proxy, self._scale = luma_proxy(luma, bit_depth, s.proxy_size)
         self._full_shape = luma.shape[:2]
         self._proxy_shape = proxy.shape[:2]
-        hist = cv2.calcHist([proxy], [0], None, [32], [0, 256])
-        cv2.normalize(hist, hist, 1.0, 0.0, cv2.NORM_L1)
         self.index += 1
-        prev, prev_hist = self._prev, self._prev_hist
-        self._prev, self._prev_hist = proxy, hist
+        prev, self._prev = self._prev, proxy
         if prev is None:
             return None
         k = self.index - 1
         p0, p1 = self._track(prev, proxy)
         empty = np.zeros((0, 2))
         if len(p0) < s.min_tracks:
-            similarity = cv2.compareHist(prev_hist, hist, cv2.HISTCMP_CORREL)
-            bright = float(prev.mean()) > 12 and float(proxy.mean()) > 12
-            cut = bool(similarity < 0.5 and bright)
-            return PairObservations(k, empty, empty, cut=cut)
+            return PairObservations(k, empty, empty, cut=self._is_cut(prev, proxy))
         return PairObservations(k, self._to_full(p0), self._to_full(p1))
+
+    def _is_cut(self, prev: np.ndarray, cur: np.ndarray) -> bool:
+        """Tracking failed: a cut when both pictures have plenty of detail to track.
+
+        Blurred, black or fading frames have little detail and are merely
+        unmeasured; their brightness is no guide (limited-range black is 16,
+        and two shots can share one histogram).
+        """
+        s = self.settings
+        return all(len(spread_corners(img, s.grid, s.per_cell, s.fast_threshold)) >= self.DETAILED * s.min_tracks
+                   for img in (prev, cur))
 
     def _track(self, prev: np.ndarray, cur: np.ndarray):
         s = self.settings
