@@ -40,7 +40,7 @@ def scenario(name, camera, rate, readout, frames, tmp, fit=None, width=960, heig
     slug = "".join(ch if ch.isalnum() else "_" for ch in name)
     src = tmp / f"{slug}.mp4"
     renderer, clock = render_clip(src, scene, camera, width, height, rate, frames, readout,
-                                  origin=(width * 0.3, height * 0.25), audio=readout == 0)
+                                  origin=(width * 0.8, height * 0.75), audio=readout == 0)
     truths = [renderer.global_view(float(clock.reference_time(k))) for k in range(frames)]
     floor_clip = tmp / f"{slug}_truth.mp4"
     write_rgb_clip(floor_clip, (to_uint8(t, 0.004, np.random.default_rng(1)) for t in truths), rate, crf=10)

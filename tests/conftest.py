@@ -41,7 +41,7 @@ def clip_factory(tmp_path_factory, panorama):
             raise ValueError(kind)
         path = root / f"{kind}_{int(readout * 1e6)}us_{n_frames}_{len(cache)}{suffix}"
         renderer, clock = render_clip(path, panorama, cam, SMALL_W, SMALL_H, rate, n_frames, readout,
-                                      origin=(SMALL_W * 0.3, SMALL_H * 0.25), audio=audio, codec=codec,
+                                      origin=(SMALL_W * 0.8, SMALL_H * 0.75), audio=audio, codec=codec,
                                       pix_fmt=pix_fmt)
         cache[key] = (path, renderer, clock)
         return cache[key]

@@ -178,7 +178,8 @@ def test_band_contrast_follows_sinc_and_vanishes_at_one_over_f(tmp_path):
         amps[exposure] = est.diagnostics["band_amplitude"]
     ref = 0.001
     for exposure, amp in amps.items():
-        expected = abs(np.sinc(f * exposure)) / abs(np.sinc(f * ref))   # np.sinc is sin(pi x)/(pi x)
+        # np.sinc(x) is sin(pi x) / (pi x)
+        expected = abs(np.sinc(f * exposure)) / abs(np.sinc(f * ref))
         assert amp / amps[ref] == pytest.approx(expected, rel=0.05), exposure
     # exposure 1/f and 2/f: the bands vanish and the measurement is refused
     for exposure in (1 / f, 2 / f):

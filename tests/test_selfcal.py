@@ -15,7 +15,7 @@ W, H = 480, 270
 
 def clip(tmp_path, panorama, camera, readout, order="top-down", rate=Fraction(25), n=24):
     path = tmp_path / "c.mp4"
-    render_clip(path, panorama, camera, W, H, rate, n, readout, order, origin=(W * 0.3, 20))
+    render_clip(path, panorama, camera, W, H, rate, n, readout, order, origin=(W * 0.8, panorama.shape[0] / 2))
     return analyse(str(path))
 
 

@@ -33,7 +33,7 @@ def render_demo_clip(path: Path) -> None:
     width, height = 960, 540
     scene = harbour_scene(int(height * 1.3), 7000)
     render_clip(path, scene, WhipPan(peak_px_s=3800.0, centre_s=1.0, duration_s=1.2, tilt_px_s=8.0),
-                width, height, DEMO_RATE, 50, DEMO_READOUT, origin=(500, height * 0.15), crf=14, audio=True)
+                width, height, DEMO_RATE, 50, DEMO_READOUT, origin=(500 + width / 2, height * 0.65), crf=14, audio=True)
 
 
 @app.command("demo")

@@ -34,7 +34,11 @@ The fit, all frames jointly:
 
 Exposure integrates the light (a box filter), so band contrast falls as
 ``|sinc(f * exposure)|`` and vanishes at exposures of ``n / f``. A square-wave
-(PWM) light has harmonics; only the fundamental is fitted.
+(PWM) light has harmonics, and so do the log and the camera's transfer curve:
+the readout comes from the fundamental, and the second and third harmonics
+(at the same row frequency times 2 and 3) are fitted alongside so that they do
+not pull it. The coarse scan uses the fundamental alone, the strongest
+component, so a harmonic is never taken for it.
 
 Safety: flickering and strobing test lights can trigger seizures in people
 with photosensitive epilepsy; mains-powered light rigs are for qualified hands.
@@ -346,7 +350,8 @@ def measure_flicker(
     """Measure the readout time from flicker bands, fitting all frames jointly.
 
     row_profiles   (n_frames, H) per-row mean luminance of each frame, full
-                   stored height (see ``row_profiles_from_luma``)
+                   stored height (see ``row_profiles_from_luma``; pass its
+                   ``black_level`` for limited-range video)
     frame_times    (n_frames,) start time of each frame, seconds (from the
                    timestamps; need not be evenly spaced)
     light_hz       intensity frequency of the light: 100 or 120 for mains
@@ -772,9 +777,13 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     f = d["light_hz"]
     info = d.get("line_order_info", {})
     fl = info.get("light_hz_fit", f)
-    for sign, name, col in ((1, "top-down", "C2"), (-1, "bottom-up", "C1")):
-        pred = _wrap(sign * 2 * np.pi * fl * (t - t[0]), 2 * np.pi)
-        ax.plot(t, np.unwrap(pred), "-", color=col, lw=1, label=f"{name} predicts")
+    if d.get("phase_kind", "band phase") == "band phase":
+        for sign, name, col in ((1, "top-down", "C2"), (-1, "bottom-up", "C1")):
+            pred = _wrap(sign * 2 * np.pi * fl * (t - t[0]), 2 * np.pi)
+            ax.plot(t, np.unwrap(pred), "-", color=col, lw=1, label=f"{name} predicts")
+    else:
+        ax.set_title("bands (nearly) still: the phase cannot tell the line order",
+                     loc="left", fontsize=10)
     ax.set_xlabel("frame time (s)")
     ax.set_ylabel("phase (rad, unwrapped)")
     ax.legend(loc="best", fontsize=8)

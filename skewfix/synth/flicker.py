@@ -291,7 +291,8 @@ def render_flicker_clip(
             np.clip(linear, 0.0, 1.0, out=linear)
             code = 16.0 + 219.0 * np.power(linear, np.float32(gamma))
             if noise_sigma > 0:
-                code += rng.standard_normal((height, width), dtype=np.float32) * np.float32(noise_sigma)
+                noise = rng.standard_normal((height, width), dtype=np.float32)
+                code += noise * np.float32(noise_sigma)
             luma = np.clip(np.rint(code), 0, 255).astype(np.uint8)
             buf = np.concatenate([luma.reshape(-1), chroma]).reshape(-1, width)
             frame = av.VideoFrame.from_ndarray(buf, format="yuv420p")

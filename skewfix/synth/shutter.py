@@ -23,11 +23,13 @@ class ShutterRenderer:
     """Samples a world-plane scene through a moving camera."""
 
     def __init__(self, scene: np.ndarray, width: int, height: int, path: CameraPath, origin=None):
+        """``origin`` is the scene pixel under the image *centre* at t = 0 (default:
+        70 % of the frame width in from the scene's left edge, vertically centred)."""
         self.scene = scene
         self.width = width
         self.height = height
         self.path = path
-        self.origin = origin if origin is not None else (width * 0.2, (scene.shape[0] - height) / 2.0)
+        self.origin = origin if origin is not None else (width * 0.7, scene.shape[0] / 2.0)
         self.xs, self.ys = np.meshgrid(np.arange(width, dtype=np.float64), np.arange(height, dtype=np.float64))
 
     def _sample(self, times_per_row: np.ndarray) -> np.ndarray:
