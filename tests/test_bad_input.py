@@ -31,7 +31,6 @@ import av
 import numpy as np
 import pytest
 
-from conftest import decode_rgb
 from skewfix.cli import main
 from skewfix.synth.residual import residual_flow_rms
 from skewfix.synth.shutter import to_uint8, write_rgb_clip
@@ -215,23 +214,30 @@ def damage(path: Path, how: str) -> None:
     data = path.read_bytes()
     if how == "truncated":  # a half-copied file: the first 60 % of its bytes
         path.write_bytes(data[: int(len(data) * 0.6)])
-    else:  # 4 KiB of garbage over the middle of the file
-        mid = len(data) // 2
-        garbage = np.random.default_rng(7).bytes(4096)
-        path.write_bytes(data[:mid] + garbage + data[mid + len(garbage):])
+        return
+    # 4 KiB of garbage from the start of the middle video packet on (a bad sector on the card)
+    with av.open(str(path)) as container:
+        positions = [p.pos for p in container.demux(video=0) if p.size and p.pos is not None and p.pos > 0]
+    start = positions[len(positions) // 2]
+    garbage = np.random.default_rng(7).bytes(4096)
+    path.write_bytes(data[:start] + garbage + data[start + len(garbage):])
+
+
+def decodable(path: Path) -> tuple[list, int]:
+    """What FFmpeg itself can still decode (errors skipped): the frames and the error count."""
+    frames, errors = [], 0
+    with av.open(str(path)) as container:
+        for packet in container.demux(video=0):
+            try:
+                frames += packet.decode()
+            except av.error.FFmpegError:
+                errors += 1
+    return frames, errors
 
 
 def decodable_pts(path: Path) -> tuple[list[int], int]:
-    """What FFmpeg itself can still decode (errors skipped): frame pts and the error count."""
-    pts, errors = [], 0
-    with av.open(str(path)) as container:
-        stream = container.streams.video[0]
-        for packet in container.demux(stream):
-            try:
-                pts += [frame.pts for frame in packet.decode()]
-            except av.error.FFmpegError:
-                errors += 1
-    return pts, errors
+    frames, errors = decodable(path)
+    return [f.pts for f in frames], errors
 
 
 @pytest.fixture(scope="module")
@@ -287,7 +293,8 @@ def test_damaged_clip_is_rescued_with_a_warning(intact, tmp_path, capsys, contai
         assert len(b.streams.audio) == len(a.streams.audio) == 1
     assert [p * tb_out for p in out_pts] == [p * tb_in for p in left]
     # ... and each of them is corrected (frames from the start, before any damage)
-    fixed, damaged = decode_rgb(out), decode_rgb(src)
+    fixed = [f.to_ndarray(format="rgb24") for f in decodable(out)[0]]
+    damaged = [f.to_ndarray(format="rgb24") for f in decodable(src)[0]]
     for k in (3, 5):
         truth = to_uint8(renderer.global_view(float(clock.reference_time(k))))
         assert residual_flow_rms(fixed[k], truth) < min(0.5, 0.5 * residual_flow_rms(damaged[k], truth))
