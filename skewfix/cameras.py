@@ -13,8 +13,8 @@ duration); ``auto`` is taken.
 The file format ("skewfix camera v1")::
 
     skewfix camera v1
-    # a7s-4k25: measured by skewfix; edit the notes freely
-    name: a7s-4k25
+    # deckcam-uhd25: measured by skewfix; edit the notes freely
+    name: deckcam-uhd25
     readout_ms: 18.5123
     uncertainty_ms: 0.0412
     line_delay_us: 8.5705

@@ -75,11 +75,23 @@ def choose_pix_fmt(encoder: str, source_fmt: str, bit_depth: int) -> tuple[str, 
     return choice, f"{encoder} cannot write {source_fmt}; writing {choice}"
 
 
+def muxer_options(output: Path, info: VideoInfo) -> dict:
+    """MP4/MOV: count the movie's edit lists in the video's own time base, not in the
+    muxer's default 1/1000 s, so a clip that starts late keeps its exact timestamps."""
+    if output.suffix.lower() in (".mp4", ".mov", ".m4v", ".3gp") and info.time_base:
+        return {"movie_timescale": str(Fraction(info.time_base).denominator)}
+    return {}
+
+
 def partial_path(output: Path) -> Path:
     """A hidden temporary name beside OUTPUT that keeps its extension."""
     fd, name = tempfile.mkstemp(prefix=f".{output.stem}.", suffix=f".partial{output.suffix}", dir=output.parent)
-    os.close(fd)
-    os.chmod(name, 0o666 & ~_umask())  # mkstemp makes it owner-only; OUTPUT gets the usual mode
+    try:
+        os.close(fd)
+        os.chmod(name, 0o666 & ~_umask())  # mkstemp makes it owner-only; OUTPUT gets the usual mode
+    except BaseException:  # Ctrl-C included: leave nothing behind
+        os.unlink(name)
+        raise
     return Path(name)
 
 
@@ -108,16 +120,19 @@ class VideoSink:
             self.notes.append(note)
         self.tmp = partial_path(self.output)
         try:
-            self.container = av.open(str(self.tmp), "w")
+            self.container = av.open(str(self.tmp), "w", options=muxer_options(self.output, info))
         except Exception as exc:
             self._remove_tmp()
             raise RuntimeProblem(f"{self.output}: cannot write here ({exc})") from None
+        except BaseException:  # Ctrl-C or a kill while opening: leave nothing behind
+            self._remove_tmp()
+            raise
         try:
             self._add_video(crf, preset, threads)
             self._copy_map = {}
             if source_container is not None:
                 self._add_copies(source_container)
-        except Exception:
+        except BaseException:
             self.abort()
             raise
         self._frames = 0

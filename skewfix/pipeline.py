@@ -492,7 +492,7 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
                             report.get("decode_errors", []))
     lost, errors = report.get("lost_frames", 0), report.get("decode_errors", [])
     if lost or errors:
-        notes.append(f"{lost} damaged packet(s) skipped; " + "; ".join(errors[:3]))
+        notes.append(f"{lost} frame(s) of the input lost (damaged file): " + "; ".join(errors[:3]))
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")

@@ -43,13 +43,13 @@ def test_round_trip_keeps_every_field(config_dir):
     # NTSC-family rates are the exact rationals 24000/1001 and 30000/1001
     # (SMPTE ST 12-1; from memory): the file must keep the fraction, not 29.97.
     info = video_info(1920, 1080, Fraction(30000, 1001))
-    path = save_camera("a7s-hd30", estimate(0.0185, height=1080, interval=1001 / 30000), info)
-    assert path == config_dir / "cameras" / "a7s-hd30.camera"
+    path = save_camera("deckcam-hd30", estimate(0.0185, height=1080, interval=1001 / 30000), info)
+    assert path == config_dir / "cameras" / "deckcam-hd30.camera"
     text = path.read_text()
     assert text.splitlines()[0] == HEADER
     assert "frame_rate: 30000/1001" in text
-    cam = load_camera("a7s-hd30")
-    assert cam.name == "a7s-hd30"
+    cam = load_camera("deckcam-hd30")
+    assert cam.name == "deckcam-hd30"
     assert cam.readout_s == pytest.approx(0.0185, abs=1e-10)
     assert cam.uncertainty_s == pytest.approx(0.00004, abs=1e-10)
     assert cam.line_delay_s == pytest.approx(0.0185 / 1080, rel=1e-4)
@@ -146,13 +146,13 @@ def test_unknown_camera_for_fix_readout():
 
 
 def test_resolver_warns_when_the_mode_differs():
-    save_camera("a7s-4k25", estimate(0.0185), video_info(3840, 2160, Fraction(25)))
-    readout, order, origin, resolver = camera_resolver("a7s-4k25", None)
+    save_camera("deckcam-uhd25", estimate(0.0185), video_info(3840, 2160, Fraction(25)))
+    readout, order, origin, resolver = camera_resolver("deckcam-uhd25", None)
     assert readout == pytest.approx(0.0185, abs=1e-10) and order == "top-down"
     same = SimpleNamespace(info=video_info(3840, 2160, Fraction(25)))
     r, o, text = resolver(same)
     assert r == pytest.approx(0.0185, abs=1e-10) and o == "top-down"
-    assert "a7s-4k25" in text and "differ" not in text
+    assert "deckcam-uhd25" in text and "differ" not in text
     smaller = SimpleNamespace(info=video_info(1920, 1080, Fraction(25)))
     _, _, text = resolver(smaller)
     assert "3840x2160" in text and "1920x1080" in text and "resolution differs" in text

@@ -43,3 +43,16 @@ def test_steady_motion_is_refused(tmp_path, panorama, camera):
     # Constant velocity shifts all rows alike whatever the readout (DESIGN.md; common practice).
     with pytest.raises(MeasurementRefused, match="too steady"):
         measure_motion(clip(tmp_path, panorama, camera, 0.02))
+
+
+def test_measure_saves_the_solved_motion(tmp_path, panorama):
+    from skewfix.cli import main
+    from skewfix.motionfile import load_motion
+
+    path = tmp_path / "whip.mp4"
+    render_clip(path, panorama, whip(25), W, H, Fraction(25), 24, 0.020, origin=(W * 0.8, panorama.shape[0] / 2))
+    motion = tmp_path / "whip.motion.json"
+    assert main(["measure", str(path), "--method", "motion", "--save-motion", str(motion), "-q"]) == 0
+    model, clock, reference_line, meta = load_motion(motion)
+    assert clock.readout == pytest.approx(0.020, rel=0.05)
+    assert len(clock.frame_times) == 24 and reference_line == "middle"

@@ -161,13 +161,21 @@ class _Measurer:
             from skewfix.measure.pan import measure_pan
 
             return measure_pan(self.clip, self._analysis(), self.fps)
-        try:
-            from skewfix.measure.selfcal import measure_motion
-        except ModuleNotFoundError as exc:
-            if exc.name != "skewfix.measure.selfcal":
-                raise
-            raise MeasurementRefused("the motion method is not available in this build") from None
+        from skewfix.measure.selfcal import measure_motion
+
         return measure_motion(self._analysis(), line_order=None)
+
+    def save_motion(self, estimate, json_path, csv_path) -> None:
+        """Solve the clip's motion with the measured readout and save it (motion file, table)."""
+        from skewfix.motionfile import save_motion, save_motion_csv
+        from skewfix.pipeline import solve
+
+        order = estimate.line_order if estimate.line_order != "undetermined" else "top-down"
+        clock, model = solve(self._analysis(), estimate.readout_s, order)
+        if json_path:
+            save_motion(json_path, model, clock, "middle", self.analysis.info)
+        if csv_path:
+            save_motion_csv(csv_path, model, clock, "middle")
 
 
 def plot_estimate(estimate, path: Path) -> None:
@@ -211,9 +219,17 @@ def measure_command(
                                            help="Shutter time of the clip (1/1000, 1ms), to explain "
                                                 "weak flicker bands."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    save_motion: Optional[str] = typer.Option(None, "--save-motion",
+                                              help="Also solve the clip's motion with the measured readout "
+                                                   "and write it (JSON motion file)."),
+    save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv",
+                                                  help="The same motion as a table, one row per frame (CSV)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Only the result line; no progress or notes."),
 ):
+    """Measure the readout time (first to last row) of the camera mode that shot CLIP."""
     choice(method, METHODS, "--method")
+    motion_json = check_report_path(save_motion, clip, "--save-motion")
+    motion_csv = check_report_path(save_motion_csv, clip, "--save-motion-csv")
     if light_hz is not None and not (math.isfinite(light_hz) and light_hz > 0):
         raise UsageProblem(f"--light-hz must be a positive frequency, not {light_hz:g}")
     if method == "flicker" and light_hz is None:
@@ -274,6 +290,11 @@ def measure_command(
     if plot_out is not None:
         plot_estimate(estimate, plot_out)
         say(f"wrote {plot_out}")
+    if motion_json is not None or motion_csv is not None:
+        measurer.save_motion(estimate, motion_json, motion_csv)
+        for written in (motion_json, motion_csv):
+            if written is not None:
+                say(f"wrote {written}")
     if save_camera is not None:
         from skewfix.cameras import camera_path, save_camera as save
 
