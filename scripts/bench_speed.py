@@ -274,7 +274,8 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
         print(f"{p.spec.label:34} {p.spec.frames:6d} {p.plain_s:8.2f} {p.fix_s:8.2f} {p.ratio:8.2f}x  "
               f"{'<=1.25x':>7}  {verdict(p.ratio, 1.25):4} {p.spec.frames / p.fix_s:7.1f}{mark}")
     print()
-    print("stages of fix, seconds of wall time in each (decode counts both passes; render threads overlap)")
+    print("stages of fix (FixResult.times), seconds in each; the stages run on overlapping threads, so they "
+          "need not add up to the total; remap includes computing the maps")
     names = ("decode", "track", "fit", "remap", "encode")
     head = f"{'clip':34} " + " ".join(f"{n:>7}" for n in names) + f" {'total':>7}   per frame: remap  encode"
     print(head)

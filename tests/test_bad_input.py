@@ -24,14 +24,18 @@ import shutil
 import subprocess
 import sys
 from dataclasses import dataclass
+from decimal import Decimal
 from fractions import Fraction
 from pathlib import Path
 
 import av
 import numpy as np
 import pytest
+from hypothesis import given, strategies as st
 
 from skewfix.cli import main
+from skewfix.errors import UsageProblem
+from skewfix.rowclock import parse_duration
 from skewfix.synth.residual import residual_flow_rms
 from skewfix.synth.shutter import to_uint8, write_rgb_clip
 
@@ -178,6 +182,35 @@ def test_bad_input_gets_one_line_and_loses_nothing(case, inputs, tmp_path):
         if case.name in PATH_NOT_NAMED_YET:
             pytest.xfail(PATH_NOT_NAMED_YET[case.name])
         pytest.fail(f"the message does not name {case.path}: {err}")
+
+
+# --------------------------------------------------------------------------
+# The readout text itself
+# --------------------------------------------------------------------------
+
+@given(st.text())
+def test_any_readout_text_is_a_duration_or_a_usage_problem(text):
+    try:
+        seconds = parse_duration(text)
+    except UsageProblem:
+        return
+    assert np.isfinite(seconds) and seconds >= 0
+
+
+@given(st.integers(min_value=0, max_value=10**12))
+def test_units_agree(microseconds):
+    # 1 s = 1000 ms = 1 000 000 us (SI prefixes); "µs" is the same unit spelt with the micro sign
+    us = Decimal(microseconds)
+    spellings = [f"{us}us", f"{us}µs", f"{us.scaleb(-3)}ms", f"{us.scaleb(-3)}", f"{us.scaleb(-6)}s",
+                 f"  {us.scaleb(-3)} ms  "]
+    values = [parse_duration(text) for text in spellings]
+    assert values == pytest.approx([microseconds * 1e-6] * len(values), rel=1e-12, abs=1e-18), spellings
+
+
+@given(st.floats(min_value=1e-9, max_value=1e6, allow_nan=False), st.sampled_from(["", "s", "ms", "us"]))
+def test_negative_readouts_are_refused_as_negative(value, unit):
+    with pytest.raises(UsageProblem, match="negative"):
+        parse_duration(f"-{value!r}{unit}")
 
 
 def test_debug_shows_the_traceback(tmp_path):
