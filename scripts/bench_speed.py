@@ -144,7 +144,7 @@ def peak_rss_mb() -> float:
 
 def child_main(job: str, *rest: str) -> None:
     """One measured job in this (fresh) process; prints a JSON report as the last line."""
-    start = time.perf_counter()
+    start, cpu_start = time.perf_counter(), time.process_time()
     if job == "plain":
         report = {"frames": plain_transcode(rest[0], rest[1], rest[2])}
     elif job == "fix":
@@ -154,6 +154,7 @@ def child_main(job: str, *rest: str) -> None:
 
         report = {"exit": cli_main(list(rest))}
     report["seconds"] = time.perf_counter() - start
+    report["cpu_s"] = time.process_time() - cpu_start  # all threads of this process
     report["peak_mb"] = peak_rss_mb()
     print("\n" + json.dumps(report))
 
@@ -196,6 +197,8 @@ class Pair:
     spec: ClipSpec
     plain_s: float
     fix_s: float
+    plain_cpu: float
+    fix_cpu: float
     plain_mb: float
     fix_mb: float
     stages: dict
@@ -212,14 +215,13 @@ def compare(spec: ClipSpec, repeats: int, work: Path) -> Pair:
     plain_out, fix_out = work / f"plain{spec.file.suffix}", work / f"fix{spec.file.suffix}"
     plains, fixes = [], []
     for _ in range(repeats):
-        report, _ = run_child(job_args("plain", spec, plain_out))
-        plains.append((report["seconds"], report["peak_mb"]))
-        report, _ = run_child(job_args("fix", spec, fix_out))
-        fixes.append((report["seconds"], report["peak_mb"], report["stages"]))
-    fastest_fix = min(fixes, key=lambda r: r[0])
+        plains.append(run_child(job_args("plain", spec, plain_out))[0])
+        fixes.append(run_child(job_args("fix", spec, fix_out))[0])
+    fastest_fix = min(fixes, key=lambda r: r["seconds"])
     same = stream_summary(plain_out) == stream_summary(fix_out)
-    return Pair(spec, min(p[0] for p in plains), fastest_fix[0], max(p[1] for p in plains),
-                max(f[1] for f in fixes), fastest_fix[2], same)
+    return Pair(spec, min(r["seconds"] for r in plains), fastest_fix["seconds"],
+                min(r["cpu_s"] for r in plains), min(r["cpu_s"] for r in fixes),
+                max(r["peak_mb"] for r in plains), max(r["peak_mb"] for r in fixes), fastest_fix["stages"], same)
 
 
 # -- the flicker measurement --------------------------------------------------------
@@ -265,14 +267,17 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
     print()
     print("speed: fix against a plain PyAV decode+encode, same encoder settings "
           "(H.264: libx264 crf 18 veryfast; ProRes: prores_ks HQ)")
-    head = f"{'clip':34} {'frames':>6} {'plain s':>8} {'fix s':>8} {'fix/plain':>9}  {'target':>7}  {'':4} {'fix fps':>7}"
+    print("(wall: elapsed time of the job; CPU: user+system time of all its threads, less disturbed by other load)")
+    head = (f"{'clip':34} {'frames':>6} {'plain s':>8} {'fix s':>8} {'fix/plain':>9}  {'target':>7}  {'':4} "
+            f"{'fix fps':>7} {'plain CPU':>9} {'fix CPU':>8} {'CPU ratio':>9}")
     print(head)
     print("-" * len(head))
     for key in ("1080", "4k", "prores"):
         p = pairs[key]
         mark = "" if p.same_format else "  (outputs differ in format!)"
         print(f"{p.spec.label:34} {p.spec.frames:6d} {p.plain_s:8.2f} {p.fix_s:8.2f} {p.ratio:8.2f}x  "
-              f"{'<=1.25x':>7}  {verdict(p.ratio, 1.25):4} {p.spec.frames / p.fix_s:7.1f}{mark}")
+              f"{'<=1.25x':>7}  {verdict(p.ratio, 1.25):4} {p.spec.frames / p.fix_s:7.1f} {p.plain_cpu:9.2f} "
+              f"{p.fix_cpu:8.2f} {p.fix_cpu / p.plain_cpu:8.2f}x{mark}")
     print()
     print("stages of fix (FixResult.times), seconds in each; the stages run on overlapping threads, so they "
           "need not add up to the total; remap includes computing the maps")

@@ -17,7 +17,9 @@ from pathlib import Path
 import av
 import numpy as np
 import pytest
+from hypothesis import given, strategies as st
 
+from skewfix.errors import UsageProblem
 from skewfix.pipeline import FixOptions, fix_clip
 from skewfix.rowclock import RowClock, frame_times_from_rate
 from skewfix.synth.paths import SteadyPan
@@ -172,3 +174,46 @@ def test_ten_bit_hdr_keeps_its_colour_tags(panorama, tmp_path):
     # still 10-bit samples, not 8-bit ones in a 10-bit box: many distinct codes, some above 8-bit's 255
     assert after["first_luma"].max() > 255 and len(np.unique(after["first_luma"])) > 256
     assert_corrected(clip, before, after)
+
+
+# --------------------------------------------------------------------------
+# The row clock on phone timing (property-based)
+# --------------------------------------------------------------------------
+
+irregular_steps = st.lists(st.integers(min_value=1, max_value=9000), min_size=1, max_size=40)  # 90 kHz ticks
+
+
+@given(irregular_steps, st.integers(min_value=2, max_value=4000), st.floats(min_value=0.0, max_value=0.05))
+def test_rows_are_timed_from_each_frames_own_timestamp(steps, height, readout):
+    times = np.concatenate([[0.0], np.cumsum(steps) / 90000.0])
+    clock = RowClock(times, height, readout)
+    k = np.arange(len(times))[:, None]
+    rows = np.array([0, height // 2, height - 1])[None, :]
+    # t(k, y) = t_k + readout * y / H (DESIGN.md's timing model): the frame's own time, never k / fps
+    assert np.allclose(clock.row_time(k, rows), times[:, None] + readout * rows / height, rtol=0, atol=1e-12)
+
+
+@given(st.integers(min_value=2, max_value=4000), st.floats(min_value=0.0, max_value=0.05),
+       st.floats(min_value=0.0, max_value=1.0))
+def test_bottom_up_mirrors_top_down_and_skew_is_linear_in_readout(height, readout, where):
+    # a sensor read bottom-up (or mounted upside down) reads row H-1-y when a top-down one
+    # reads row y (fact of the trade); the lean grows linearly with the readout (fact of the trade)
+    y = where * (height - 1)
+    down = RowClock(np.array([0.0]), height, readout)
+    up = RowClock(np.array([0.0]), height, readout, line_order="bottom-up")
+    assert up.row_time(0, height - 1 - y) == pytest.approx(down.row_time(0, y), abs=1e-15)
+    double = RowClock(np.array([0.0]), height, 2 * readout)
+    assert double.row_time(0, y) == pytest.approx(2 * down.row_time(0, y), abs=1e-15)
+
+
+@given(irregular_steps, st.floats(min_value=0.0, max_value=2.0))
+def test_a_readout_fits_only_inside_the_frame_interval(steps, fraction):
+    times = np.concatenate([[0.0], np.cumsum(steps) / 90000.0])
+    interval = float(np.median(np.diff(times)))
+    clock = RowClock(times, 1080, fraction * interval)
+    # the readout fraction readout / frame interval is at most 1 (DESIGN.md)
+    if fraction <= 1.0:
+        clock.check_readout_fits()
+    else:
+        with pytest.raises(UsageProblem, match="longer than the frame interval"):
+            clock.check_readout_fits()
