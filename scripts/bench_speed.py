@@ -3,7 +3,9 @@
 Renders rolling-shutter whip pans with skewfix.synth (cached in scripts/.cache),
 then, in one run and alternating, times `fix` and a plain PyAV decode-and-encode
 of the same clip with the same encoder settings, each in a fresh child process
-whose peak resident memory is read from the kernel (wait4). Prints one table:
+that reports its wall time, CPU time and peak resident memory (Linux VmHWM; a
+child's ru_maxrss is no good here, as Linux carries the parent's high-water
+mark across fork and exec). Prints one table:
 the fix/plain ratio for 1080p25 H.264, 4K H.264 and a 10-bit 4:2:2 ProRes
 source, the time in each stage of fix, the peak memory of fix on a clip and on
 one four times longer, and the time of `skewfix measure --method flicker`.
@@ -124,8 +126,9 @@ def fix(source: str, target: str, codec: str, readout: float) -> dict:
     from skewfix.pipeline import FixOptions, fix_clip
 
     _, options = ENCODE[codec]
-    result = fix_clip(source, target, FixOptions(readout=readout, codec=codec, crf=int(options["crf"]) if "crf" in options
-                                                 else None, preset=options.get("preset"), force=True))
+    crf = int(options["crf"]) if "crf" in options else None
+    result = fix_clip(source, target, FixOptions(readout=readout, codec=codec, crf=crf, preset=options.get("preset"),
+                                                 force=True))
     return {"frames": result.frames_written, "stages": result.times.as_dict()}
 
 
@@ -256,7 +259,7 @@ def verdict(value: float, limit: float) -> str:
     return "ok" if value <= limit else "MISS"
 
 
-def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[float]) -> None:
+def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[float], quick: bool) -> None:
     import av
     import cv2
 
@@ -302,6 +305,8 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
     print(f"{long.spec.label:34} {long.spec.frames:6d} {long.fix_mb:8.0f} {long.plain_mb:9.0f}  "
           f"{'<= 1.10x the short':>20}  {verdict(growth, 1.10)} ({growth:.3f}x)")
     print(f"{'4K fix, for scale':34} {pairs['4k'].spec.frames:6d} {pairs['4k'].fix_mb:8.0f} {pairs['4k'].plain_mb:9.0f}")
+    if quick:
+        print("(quick run: a clip this short can end before fix's look-ahead fills; judge memory on a full run)")
     print()
     print(f"measure --method flicker --light-hz 100, 24 frames 1080p25: {flicker}")
 
@@ -399,7 +404,7 @@ def main(argv=None):
         pairs = {key: compare(spec, repeats, work) for key, spec in specs.items()}
         flicker = flicker_row(work)
         loads.append(os.getloadavg()[0])
-        print_table(pairs, flicker, repeats, loads)
+        print_table(pairs, flicker, repeats, loads, args.quick)
         if args.profile:
             profile_fix(specs["1080"], work)
     return 0

@@ -11,6 +11,7 @@ the encoder can copy them. Image sequences are handled by
 from __future__ import annotations
 
 import os
+import threading
 from dataclasses import dataclass, field
 from fractions import Fraction
 from pathlib import Path
@@ -196,13 +197,19 @@ class VideoSource:
         )
         self.lost_frames = 0
         self.decode_errors: list[str] = []
+        # demux() may run on another thread: close() waits for the FFmpeg call in
+        # flight, so a Ctrl-C on the main thread never frees the demuxer under it
+        self._io_lock = threading.Lock()
+        self._closed = False
 
     @property
     def container(self):
         return self._container
 
     def close(self) -> None:
-        self._container.close()
+        with self._io_lock:
+            self._closed = True
+            self._container.close()
 
     def __enter__(self):
         return self
@@ -250,26 +257,32 @@ class VideoSource:
         losses = FrameLossCounter(self.info.frame_interval, self.info.frame_count, *self._end_time())
         packets = self._container.demux(*streams)
         while True:
-            try:
-                packet = next(packets)
-            except StopIteration:
-                break
-            except av.error.FFmpegError as exc:
-                self.decode_errors.append(f"reading stopped after frame {index}: {_short(exc)}")
-                break
+            with self._io_lock:
+                if self._closed:
+                    return
+                try:
+                    packet = next(packets)
+                except StopIteration:
+                    break
+                except av.error.FFmpegError as exc:
+                    self.decode_errors.append(f"reading stopped after frame {index}: {_short(exc)}")
+                    break
             if packet.stream.index != self.stream.index:
                 if packet.dts is not None:
                     yield "packet", packet
                 continue
             if packet.size:
                 losses.packets += 1
-            try:
-                frames = packet.decode()
-            except av.error.FFmpegError as exc:
-                losses.failed += 1
-                if losses.failed == 1:
-                    first_error = f"first decoder error near frame {index}: {_short(exc)}"
-                continue
+            with self._io_lock:
+                if self._closed:
+                    return
+                try:
+                    frames = packet.decode()
+                except av.error.FFmpegError as exc:
+                    losses.failed += 1
+                    if losses.failed == 1:
+                        first_error = f"first decoder error near frame {index}: {_short(exc)}"
+                    continue
             for frame in frames:
                 pts_time = self._pts_time(frame, tb)
                 yield "frame", self._wrap(frame, index, tb, t0)
