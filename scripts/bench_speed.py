@@ -49,6 +49,7 @@ class ClipSpec:
     readout: float
     codec: str = "h264"          # key of ENCODE: the source's codec and the one fix writes
     pan_frames: int | None = None  # frames the whip pan lasts, centred; default 80 % of the clip
+    interpolation: str = "cubic"   # fix --interpolation (the clip file does not depend on it)
 
     @property
     def file(self) -> Path:
@@ -92,6 +93,7 @@ def clip_specs(quick: bool) -> dict[str, ClipSpec]:
     return {
         "1080": ClipSpec("1080p25 H.264", 1920, 1080, n, 0.020),
         "1080long": ClipSpec("1080p25 H.264, 4x longer", 1920, 1080, 4 * n, 0.020, pan_frames=round(0.8 * n)),
+        "1080lin": ClipSpec("1080p25 H.264, --interpolation linear", 1920, 1080, n, 0.020, interpolation="linear"),
         "4k": ClipSpec("2160p25 H.264 (3840x2160)", 3840, 2160, n4k, 0.028),
         "prores": ClipSpec("1080p25 ProRes 422 HQ 10-bit", 1920, 1080, n, 0.020, codec="prores"),
     }
@@ -122,13 +124,13 @@ def plain_transcode(source: str, target: str, codec: str) -> int:
     return frames
 
 
-def fix(source: str, target: str, codec: str, readout: float) -> dict:
+def fix(source: str, target: str, codec: str, readout: float, interpolation: str = "cubic") -> dict:
     from skewfix.pipeline import FixOptions, fix_clip
 
     _, options = ENCODE[codec]
     crf = int(options["crf"]) if "crf" in options else None
     result = fix_clip(source, target, FixOptions(readout=readout, codec=codec, crf=crf, preset=options.get("preset"),
-                                                 force=True))
+                                                 force=True, interpolation=interpolation))
     return {"frames": result.frames_written, "stages": result.times.as_dict()}
 
 
@@ -151,7 +153,7 @@ def child_main(job: str, *rest: str) -> None:
     if job == "plain":
         report = {"frames": plain_transcode(rest[0], rest[1], rest[2])}
     elif job == "fix":
-        report = fix(rest[0], rest[1], rest[2], float(rest[3]))
+        report = fix(rest[0], rest[1], rest[2], float(rest[3]), rest[4])
     else:  # "cli": the skewfix command line, in process
         from skewfix.cli import main as cli_main
 
@@ -178,7 +180,8 @@ def run_child(args: list[str]) -> tuple[dict, float]:
 
 
 def job_args(job: str, spec: ClipSpec, target: Path) -> list[str]:
-    return [sys.executable, __file__, "--child", job, str(spec.file), str(target), spec.codec, repr(spec.readout)]
+    return [sys.executable, __file__, "--child", job, str(spec.file), str(target), spec.codec, repr(spec.readout),
+            spec.interpolation]
 
 
 def cli_args(*words: str) -> list[str]:

@@ -142,7 +142,7 @@ class FitSettings:
     knots_per_frame: float = 4.0
     smoothness: float = 0.02
     model: str = "similarity"
-    iterations: int = 6
+    iterations: int = 4
     min_tracks: int = 8
 
 

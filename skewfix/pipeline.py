@@ -31,6 +31,7 @@ from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import WarpMap, correction_map, crop_zoom, outside_matte, remap_plane, reskew_map
 
 Progress = Callable[[str, int, "int | None"], None]
+IDENTITY_TOLERANCE_PX = 0.01  # a frame whose map moves nothing further is passed through untouched
 
 
 def _quiet(stage: str, done: int, total):
@@ -135,6 +136,7 @@ class RenderSettings:
     border: str = "edge"
     direction: str = "correct"  # or "reskew"
     queue_depth: int = 4
+    interpolation: str = "cubic"  # luma/RGB resampling: "cubic" (sharper) or "linear" (faster)
 
 
 class FrameWarper:
@@ -155,6 +157,12 @@ class FrameWarper:
     def mappable(self, k: int, observed: int, finished: bool) -> bool:
         return True
 
+    def close(self) -> None:
+        """Called when the decoder has delivered its last frame."""
+
+    def release_before(self, k: int) -> None:
+        """Frames before ``k`` are done (a streaming warper may free their fits)."""
+
     @property
     def total(self) -> int | None:
         return len(self.clock.frame_times)
@@ -170,26 +178,45 @@ class FrameWarper:
 
     def apply_map(self, wm: WarpMap, planes, subsampling):
         """Remap every plane at its own size and depth (identity maps copy nothing)."""
-        if wm.is_identity():
+        if wm.is_identity(IDENTITY_TOLERANCE_PX):
             return planes
         fills = black_levels(self.info, len(planes))
+        maps = {}  # U and V share one map
         out = []
         for plane, sub, fill in zip(planes, subsampling, fills):
             h, w = plane.shape[:2]
-            mx, my = wm.full(w, h, sub)
+            key = (w, h, tuple(sub))
+            if key not in maps:
+                maps[key] = wm.full(w, h, sub)
+            mx, my = maps[key]
             channels = plane.shape[2] if plane.ndim == 3 else 1
             # luma (and RGB) with cubic convolution; subsampled chroma bilinear (cheaper, and
             # chroma carries little fine detail)
-            interp = "cubic" if sub == (1, 1) else "linear"
+            interp = self.settings.interpolation if tuple(sub) == (1, 1) else "linear"
             out.append(remap_plane(plane, mx, my, "black" if self.settings.border == "black" else "edge",
                                    (fill,) * channels if channels > 1 else fill, interp))
         return out
 
 
+LOOKAHEAD_BYTES = 400 * 2**20  # full frames allowed to wait for their window's fit
+
+
+def window_for(info: VideoInfo, budget_bytes: int = LOOKAHEAD_BYTES) -> tuple[int, int]:
+    """Frames per fitted window and context margin that keep the look-ahead in budget."""
+    sample = 2 if info.bit_depth > 8 else 1
+    chroma = 3.0 if info.is_rgb or "444" in info.pix_fmt else 2.0 if "422" in info.pix_fmt else 1.5
+    frame_bytes = info.width * info.height * sample * chroma
+    frames = max(10, int(budget_bytes // max(frame_bytes, 1)))
+    margin = min(6, frames // 3)
+    window = max(4, min(32, frames - 2 * margin))
+    return window, margin
+
+
 class StreamingWarper(FrameWarper):
     """Corrects while decoding: tracks each frame as it arrives and fits the motion
     in windows of ``window`` frames with ``margin`` frames of context on each
-    side, so only about ``window + margin`` full frames ever wait in memory.
+    side, on a thread of its own, so only about ``window + margin`` full frames
+    ever wait in memory (see `window_for`).
 
     Each frame is mapped with exactly one window's fit; the correction depends
     only on the motion *within* that frame, so window boundaries leave no seam.
@@ -197,45 +224,70 @@ class StreamingWarper(FrameWarper):
 
     def __init__(self, info: VideoInfo, readout: float, line_order: str, settings: RenderSettings,
                  fit: FitSettings | None = None, tracker: TrackerSettings | None = None,
-                 window: int = 24, margin: int = 8, times: StageTimes | None = None):
+                 window: int | None = None, margin: int | None = None, times: StageTimes | None = None):
         self.info, self.settings, self.zoom = info, settings, 1.0
         self.readout, self.line_order = readout, line_order
         self.fit_settings = fit or FitSettings()
         self.tracker = PairTracker(tracker)
-        self.window, self.margin = window, margin
+        auto_window, auto_margin = window_for(info)
+        self.window = window or auto_window
+        self.margin = auto_margin if margin is None else margin
         self.stage_times = times or StageTimes()
-        self._lock = threading.Lock()
+        self._cond = threading.Condition()
         self.frame_times: list[float] = []
         self.pts: list = []
         self._pairs: dict[int, PairObservations] = {}
         self.track_counts: dict[int, int] = {}
+        self._observed = 0
+        self._closed = False
         self._fitted_until = 0
+        self._fit_error: BaseException | None = None
         self._windows: list[tuple[int, int, int, MotionModel, RowClock]] = []
         self.segments = []
         self.cuts: list[int] = []
         self.unmeasured: list[int] = []
+        self._fitter = threading.Thread(target=self._fit_loop, daemon=True)
+        self._fitter.start()
 
     @property
     def total(self):
         return expected_frames(self.info)
 
+    # -- decoding thread --------------------------------------------------
     def observe(self, frame) -> None:
         t0 = time.perf_counter()
         obs = self.tracker.push(frame.luma, frame.bit_depth)
-        with self._lock:
+        with self._cond:
             self.frame_times.append(frame.time)
             self.pts.append(frame.pts)
             if obs is not None:
                 self._pairs[obs.k] = obs
                 self.track_counts[obs.k] = len(obs.p0)
+            self._observed += 1
+            self._cond.notify_all()
         self.stage_times.track += time.perf_counter() - t0
 
-    def mappable(self, k: int, observed: int, finished: bool) -> bool:
-        while k >= self._fitted_until:
-            if not finished and observed < self._fitted_until + self.window + self.margin:
-                return False
-            self._fit_next(observed)
-        return True
+    def close(self) -> None:
+        """No more frames will be observed (end of stream, error or stop)."""
+        with self._cond:
+            self._closed = True
+            self._cond.notify_all()
+
+    # -- fitting thread ---------------------------------------------------
+    def _fit_loop(self) -> None:
+        try:
+            while True:
+                with self._cond:
+                    while not self._closed and self._observed < self._fitted_until + self.window + self.margin:
+                        self._cond.wait()
+                    observed = self._observed
+                    if self._fitted_until >= observed:
+                        return
+                self._fit_next(observed)
+        except BaseException as exc:  # noqa: BLE001 - reported to the warp thread
+            with self._cond:
+                self._fit_error = exc
+                self._cond.notify_all()
 
     def _fit_next(self, observed: int) -> None:
         t0 = time.perf_counter()
@@ -243,8 +295,9 @@ class StreamingWarper(FrameWarper):
         b = min(a + self.window, observed)
         if observed - b < self.margin // 2:  # do not leave a stub of a window at the end
             b = observed
-        lo, hi = max(0, a - self.margin), min(observed, b + self.margin)
-        with self._lock:
+        lo = max(0, a - self.margin)
+        with self._cond:
+            hi = min(self._observed, b + self.margin)
             times = np.asarray(self.frame_times[lo:hi])
             pairs = [PairObservations(p.k - lo, p.p0, p.p1, p.cut) for k, p in self._pairs.items()
                      if lo <= k < hi - 1]
@@ -252,28 +305,51 @@ class StreamingWarper(FrameWarper):
                 del self._pairs[k]  # bounded memory: old tracks are no longer needed
         clock = RowClock(times, self.info.height, self.readout, self.line_order)
         model = fit_motion(pairs, clock, self.info.width, self.fit_settings)
-        self._windows.append((a, b, lo, model, clock))
-        if len(self._windows) > 2:
-            self._windows.pop(0)
+        segments = []
         for seg in model.segments:  # keep the part this window is responsible for
             first, last = max(seg.first_frame + lo, a), min(seg.last_frame + lo, b - 1)
             if first <= last:
-                self.segments.append(MotionSegment(first, last, seg.knot_start, seg.knot_spacing, seg.coefficients))
-        self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
-        self.unmeasured += [k + lo for k in model.unmeasured_pairs if a <= k + lo < b]
-        self._fitted_until = b
+                segments.append(MotionSegment(first, last, seg.knot_start, seg.knot_spacing, seg.coefficients))
+        with self._cond:
+            self._windows.append((a, b, lo, model, clock))
+            self.segments += segments
+            self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
+            self.unmeasured += [k + lo for k in model.unmeasured_pairs if a <= k + lo < b]
+            self._fitted_until = b
+            self._cond.notify_all()
         self.stage_times.fit += time.perf_counter() - t0
 
+    # -- warping thread ---------------------------------------------------
+    def mappable(self, k: int, observed: int, finished: bool) -> bool:
+        """Whether frame ``k`` has its fit; once the input has ended, wait for it."""
+        with self._cond:
+            while k >= self._fitted_until:
+                if self._fit_error is not None:
+                    raise self._fit_error
+                if not finished:
+                    return False
+                if not self._fitter.is_alive() and k >= self._fitted_until:
+                    raise RuntimeProblem(f"{self.info.path}: frame {k} was decoded but never fitted")
+                self._cond.wait(timeout=0.5)
+            return True
+
     def map_for(self, k: int) -> WarpMap:
-        for a, b, lo, model, clock in reversed(self._windows):
+        with self._cond:
+            windows = list(self._windows)
+        for a, b, lo, model, clock in reversed(windows):
             if a <= k < b:
                 return correction_map(model, clock, k - lo, self.settings.reference_line)
         raise IndexError(f"frame {k} has no fitted motion yet")
 
+    def release_before(self, k: int) -> None:
+        """Forget windows that end before frame ``k`` (bounded memory)."""
+        with self._cond:
+            self._windows = [w for w in self._windows if w[1] > k]
+
     def whole_model(self) -> tuple[RowClock, MotionModel]:
         """The clip's motion as one model (one segment per window or shot)."""
         clock = RowClock(np.asarray(self.frame_times), self.info.height, self.readout, self.line_order)
-        model = MotionModel(self.info.width, self.info.height, list(self.segments),
+        model = MotionModel(self.info.width, self.info.height, sorted(self.segments, key=lambda s: s.first_frame),
                             unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts))
         return clock, model
 
@@ -318,14 +394,17 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
 
     def decode_stage():
         t = time.perf_counter()
-        for kind, item in source.demux(copy_streams=copy):
-            if stop.is_set():
-                return
-            if kind == "frame":
-                times.decode += time.perf_counter() - t
-                warper.observe(item)  # tracking, for a streaming warper
-            decoded.put((kind, item))
-            t = time.perf_counter()
+        try:
+            for kind, item in source.demux(copy_streams=copy):
+                if stop.is_set():
+                    return
+                if kind == "frame":
+                    times.decode += time.perf_counter() - t
+                    warper.observe(item)  # tracking, for a streaming warper
+                decoded.put((kind, item))
+                t = time.perf_counter()
+        finally:
+            warper.close()
 
     def warp_stage():
         waiting: deque = deque()  # the look-ahead: frames decoded but not yet mappable
@@ -335,6 +414,7 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
                 frame = waiting.popleft()
                 t = time.perf_counter()
                 planes, wm = warper.apply(frame.index, frame.planes, frame.subsampling)
+                warper.release_before(frame.index)
                 times.remap += time.perf_counter() - t
                 warped.put(("frame", frame, planes, wm))
             if finished or stop.is_set():
@@ -411,6 +491,7 @@ class FixOptions:
     fit: FitSettings = field(default_factory=FitSettings)
     tracker: TrackerSettings = field(default_factory=TrackerSettings)
     threads: int | None = None
+    interpolation: str = "cubic"
 
 
 @dataclass
@@ -447,7 +528,7 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
             RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
     times = StageTimes()
     notes: list[str] = []
-    settings = RenderSettings(options.reference_line, options.border)
+    settings = RenderSettings(options.reference_line, options.border, interpolation=options.interpolation)
     whole_clip = readout_resolver is not None or options.border == "crop"
     if whole_clip:
         # --readout auto and --border crop need the whole clip's motion first: analyse, then render

@@ -43,7 +43,7 @@ class TrackerSettings:
     grid: tuple[int, int] = (16, 9)  # cells across and down for spreading features
     per_cell: int = 2
     fast_threshold: int = 12
-    window: int = 21
+    window: int = 15  # the phase-correlation seed makes a large window unnecessary
     levels: int = 3
     fb_threshold: float = 0.5  # proxy px
     min_tracks: int = 8
@@ -105,7 +105,7 @@ class PairTracker:
         seed = phase_shift(prev, cur)
         guess = pts + np.float32(seed)
         lk = dict(winSize=(s.window, s.window), maxLevel=s.levels,
-                  criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.01))
+                  criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 20, 0.01))
         fwd, st1, _ = cv2.calcOpticalFlowPyrLK(prev, cur, pts, guess.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
         back, st2, _ = cv2.calcOpticalFlowPyrLK(cur, prev, fwd, pts.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
         h, w = cur.shape[:2]

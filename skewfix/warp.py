@@ -46,43 +46,43 @@ class WarpMap:
     height: int
     cell: int = GRID_STEP
 
-    def is_identity(self) -> bool:
-        return float(np.max(np.abs(self.dx))) < 1e-6 and float(np.max(np.abs(self.dy))) < 1e-6
-
-    def _upsample(self, coarse: np.ndarray, cell_x: int, cell_y: int, width: int, height: int) -> np.ndarray:
-        gh, gw = coarse.shape
-        big = cv2.resize(coarse, (gw * cell_x, gh * cell_y), interpolation=cv2.INTER_LINEAR)
-        return big[cell_y:cell_y + height, cell_x:cell_x + width]
+    def is_identity(self, tolerance: float = 1e-6) -> bool:
+        """True when no sample moves by more than ``tolerance`` pixels."""
+        return float(np.max(np.abs(self.dx))) <= tolerance and float(np.max(np.abs(self.dy))) <= tolerance
 
     def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
         """Absolute source coordinates (map_x, map_y) for a plane of the given size.
 
-        ``subsample`` is the plane's (horizontal, vertical) subsampling factor;
-        chroma planes get the luma displacement scaled down by it.
+        ``subsample`` is the plane's (horizontal, vertical) subsampling factor.
+        The coarse *absolute* coordinates are upsampled directly: bilinear
+        interpolation reproduces the identity ramp exactly, so no per-pixel
+        addition is needed. A chroma plane's coordinates are the luma ones
+        mapped through ``u = (x + 0.5) / f - 0.5`` (centre-sited samples).
         """
         width = width or self.width
         height = height or self.height
         fx, fy = subsample
+        gx, gy = coarse_grid(self.width, self.height, self.cell)
+        ax = (gx + self.dx).astype(np.float32)
+        ay = (gy + self.dy).astype(np.float32)
+        if fx != 1:
+            ax = (ax + 0.5) * (1.0 / fx) - 0.5
+        if fy != 1:
+            ay = (ay + 0.5) * (1.0 / fy) - 0.5
         cx, cy = self.cell // fx, self.cell // fy
-        dx = self.dx if fx == 1 else self.dx * (1.0 / fx)
-        dy = self.dy if fy == 1 else self.dy * (1.0 / fy)
-        mx = self._upsample(dx, cx, cy, width, height) + _arange_row(width)
-        my = self._upsample(dy, cx, cy, width, height) + _arange_col(height)
+        gh, gw = ax.shape
+        size = (gw * cx, gh * cy)
+        mx = cv2.resize(ax, size, interpolation=cv2.INTER_LINEAR)[cy:cy + height, cx:cx + width]
+        my = cv2.resize(ay, size, interpolation=cv2.INTER_LINEAR)[cy:cy + height, cx:cx + width]
         return mx, my
 
 
-@lru_cache(maxsize=16)
-def _arange_row(n):
-    return np.arange(n, dtype=np.float32)[None, :]
-
-
-@lru_cache(maxsize=16)
-def _arange_col(n):
-    return np.arange(n, dtype=np.float32)[:, None]
-
-
+@lru_cache(maxsize=32)
 def coarse_grid(width: int, height: int, step: int = GRID_STEP):
-    """Sample positions of the coarse map: cell centres extended half a cell past each edge."""
+    """Sample positions of the coarse map: cell centres extended half a cell past each edge.
+
+    Cached and shared: callers must not modify the arrays.
+    """
     gw = int(np.ceil(width / step)) + 2
     gh = int(np.ceil(height / step)) + 2
     xs = -step / 2.0 - 0.5 + np.arange(gw) * step
@@ -96,7 +96,7 @@ def _zoom_about_centre(px, py, width, height, zoom):
 
 
 def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
-                   zoom: float = 1.0, step: int = GRID_STEP, iterations: int = 4) -> WarpMap:
+                   zoom: float = 1.0, step: int = GRID_STEP, iterations: int = 3) -> WarpMap:
     """Map that turns rolling-shutter frame ``k`` into the global-shutter view at its reference row."""
     w, h = model.width, model.height
     gx, gy = coarse_grid(w, h, step)

@@ -71,6 +71,8 @@ def fix_command(
     reference_line: str = typer.Option("middle", "--reference-line",
                                        help="Row whose instant the corrected frame shows: middle, top or bottom."),
     border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge, black or crop."),
+    interpolation: str = typer.Option("cubic", "--interpolation",
+                                      help="Resampling of luma/RGB: cubic (sharper, default) or linear (faster)."),
     codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
     crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16, visually lossless)."),
     preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
@@ -111,7 +113,8 @@ def fix_command(
     seconds, order, origin, resolver = readout_plan(readout, line_order)
     options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
                          reference_line=reference_line, border=border, codec=codec, crf=crf,
-                         preset=preset, force=force, fps=parse_rate(fps))
+                         preset=preset, force=force, fps=parse_rate(fps),
+                         interpolation=choice(interpolation, ("cubic", "linear"), "--interpolation"))
     extras = FixDeliverables(input, output, motion=save_motion, motion_csv=save_motion_csv, maps_dir=save_maps,
                              matte=save_matte, report=report, reference_line=reference_line, border=border,
                              force=force, fps=options.fps,
