@@ -101,6 +101,16 @@ def _umask() -> int:
     return mask
 
 
+_UNFINISHED: set = set()  # sinks opened but neither finished nor aborted yet
+
+
+def abort_unfinished() -> None:
+    """Remove the temporary file of every sink not yet finished (the CLI calls this on
+    Ctrl-C, which may strike after a sink is opened but before its caller guards it)."""
+    for sink in list(_UNFINISHED):
+        sink.abort()
+
+
 class VideoSink:
     """An output clip being written; `finish()` renames it into place."""
 
@@ -118,6 +128,8 @@ class VideoSink:
         self.pix_fmt, note = choose_pix_fmt(self.encoder, info.pix_fmt, info.bit_depth)
         if note:
             self.notes.append(note)
+        self.tmp = None
+        _UNFINISHED.add(self)  # first, so that even a Ctrl-C right after the file appears is cleaned up
         self.tmp = partial_path(self.output)
         try:
             self.container = av.open(str(self.tmp), "w", options=muxer_options(self.output, info))
@@ -241,6 +253,7 @@ class VideoSink:
             self.abort()
             raise RuntimeProblem(f"{self.output}: writing failed ({exc}); nothing was written") from None
         os.replace(self.tmp, self.output)
+        _UNFINISHED.discard(self)
         return self.output
 
     def abort(self) -> None:
@@ -249,10 +262,12 @@ class VideoSink:
         except Exception:
             pass
         self._remove_tmp()
+        _UNFINISHED.discard(self)
 
     def _remove_tmp(self):
         try:
-            os.unlink(self.tmp)
+            if self.tmp is not None:
+                os.unlink(self.tmp)
         except FileNotFoundError:
             pass
 

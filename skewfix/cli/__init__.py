@@ -101,6 +101,8 @@ def main(argv: list[str] | None = None) -> int:
         typer.echo(f"skewfix: unexpected {type(exc).__name__}: {first} (run with --debug for details)", err=True)
         return 1
     if status == INTERRUPTED:  # recent typer turns Ctrl-C into an exit status of 130 and returns it
+        if "skewfix.encode" in sys.modules:  # a clip being written: make sure its temporary file goes
+            sys.modules["skewfix.encode"].abort_unfinished()
         typer.echo("skewfix: stopped; nothing was written", err=True)
         return INTERRUPTED
     return status if type(status) is int else 0  # an exit status a command raised (typer.Exit)
