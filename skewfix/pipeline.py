@@ -24,7 +24,7 @@ import cv2
 import numpy as np
 
 from skewfix.decode import VideoInfo, open_source
-from skewfix.errors import InputError, RuntimeProblem
+from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion
 from skewfix.rowclock import RowClock
 from skewfix.track import PairTracker, TrackerSettings
@@ -111,7 +111,10 @@ def solve(analysis: Analysis, readout: float, line_order: str = "top-down",
     """Fit the motion curves for the given readout; returns the row clock and the model."""
     t0 = time.perf_counter()
     clock = RowClock(analysis.frame_times, analysis.info.height, readout, line_order)
-    clock.check_readout_fits(analysis.info.frame_interval)
+    try:
+        clock.check_readout_fits(analysis.info.frame_interval)
+    except UsageProblem as exc:
+        raise UsageProblem(f"{analysis.info.path}: {exc}") from None
     model = fit_motion(analysis.pairs, clock, analysis.info.width, settings)
     if times is not None:
         times.fit += time.perf_counter() - t0
@@ -156,6 +159,9 @@ class FrameWarper:
 
     def mappable(self, k: int, observed: int, finished: bool) -> bool:
         return True
+
+    #: most decoded frames the render loop may hold while waiting for ``mappable``
+    lookahead_limit: int | None = None
 
     def close(self) -> None:
         """Called when the decoder has delivered its last frame."""
@@ -233,6 +239,8 @@ class StreamingWarper(FrameWarper):
         self.window = window or auto_window
         self.margin = auto_margin if margin is None else margin
         self.stage_times = times or StageTimes()
+        # enough for one window and its context to be complete, so the fit can always start
+        self.lookahead_limit = self.window + 2 * self.margin + 1
         self._cond = threading.Condition()
         self.frame_times: list[float] = []
         self.pts: list = []
@@ -246,6 +254,7 @@ class StreamingWarper(FrameWarper):
         self.segments = []
         self.cuts: list[int] = []
         self.unmeasured: list[int] = []
+        self.inliers: list[float] = []
         self._fitter = threading.Thread(target=self._fit_loop, daemon=True)
         self._fitter.start()
 
@@ -311,6 +320,7 @@ class StreamingWarper(FrameWarper):
             if first <= last:
                 segments.append(MotionSegment(first, last, seg.knot_start, seg.knot_spacing, seg.coefficients))
         with self._cond:
+            self.inliers.append(model.inlier_fraction)
             self._windows.append((a, b, lo, model, clock))
             self.segments += segments
             self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
@@ -350,7 +360,8 @@ class StreamingWarper(FrameWarper):
         """The clip's motion as one model (one segment per window or shot)."""
         clock = RowClock(np.asarray(self.frame_times), self.info.height, self.readout, self.line_order)
         model = MotionModel(self.info.width, self.info.height, sorted(self.segments, key=lambda s: s.first_frame),
-                            unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts))
+                            unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts),
+                            inlier_fraction=float(np.mean(self.inliers)) if self.inliers else 0.0)
         return clock, model
 
 
@@ -409,8 +420,12 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
     def warp_stage():
         waiting: deque = deque()  # the look-ahead: frames decoded but not yet mappable
         observed, finished = 0, False
+        limit = warper.lookahead_limit
         while True:
-            while waiting and warper.mappable(waiting[0].index, observed, finished):
+            # a full look-ahead waits for the fit (bounded memory) instead of decoding on
+            full = limit is not None and len(waiting) >= limit
+            while waiting and warper.mappable(waiting[0].index, observed, finished or full):
+                full = False
                 frame = waiting.popleft()
                 t = time.perf_counter()
                 planes, wm = warper.apply(frame.index, frame.planes, frame.subsampling)
@@ -517,7 +532,9 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     caller measure the readout from the analysis (``--readout auto``).
     """
     from skewfix.encode import VideoSink, check_output_path
+    from skewfix.memory import keep_large_buffers_mapped
 
+    keep_large_buffers_mapped()
     check_output_path(input_path, output_path, options.force)
     with open_source(input_path, options.fps) as probe:  # refuse early, before any decoding
         probe_info = probe.info
@@ -525,7 +542,10 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
             probe_info.rotation = probe.read_rotation()
         interval = probe.info.frame_interval
         if readout_resolver is None and interval and options.readout > interval * (1 + 1e-9):
-            RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
+            try:
+                RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
+            except UsageProblem as exc:
+                raise UsageProblem(f"{input_path}: {exc}") from None
     times = StageTimes()
     notes: list[str] = []
     settings = RenderSettings(options.reference_line, options.border, interpolation=options.interpolation)
@@ -546,17 +566,18 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
         info = probe_info
         warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times)
         analysis = None
-    if sink_factory is not None:
-        sink = sink_factory(info)
-    else:
-        import av
-
-        with av.open(input_path) as template:
-            sink = VideoSink(output_path, info, codec=options.codec, crf=options.crf,
-                             preset=options.preset, source_container=template, threads=options.threads)
-    notes.extend(sink.notes)
     report: dict = {}
+    sink = None
     try:
+        if sink_factory is not None:
+            sink = sink_factory(info)
+        else:
+            import av
+
+            with av.open(input_path) as template:
+                sink = VideoSink(output_path, info, codec=options.codec, crf=options.crf,
+                                 preset=options.preset, source_container=template, threads=options.threads)
+        notes.extend(sink.notes)
         written = render(input_path, sink, warper, options.fps, progress, times, on_frame, report=report)
         if analysis is not None and written != analysis.n_frames:
             raise RuntimeProblem(f"{input_path}: the second pass decoded {written} frames, the first "
@@ -565,7 +586,10 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
             raise InputError(f"{input_path}: no frame could be decoded")
         sink.finish()
     except BaseException:
-        sink.abort()
+        if sink is not None:
+            sink.abort()
+        if isinstance(warper, StreamingWarper):
+            warper.close()
         raise
     if analysis is None:
         clock, model = warper.whole_model()

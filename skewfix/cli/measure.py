@@ -132,7 +132,10 @@ def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):
     interval = info.frame_interval or (float(np.median(np.diff(times))) if len(times) > 1 else None)
     if not interval:
         raise UsageProblem(f"{clip}: the frame rate is not known (give --fps)")
-    return measure_flicker(np.stack(profiles), times, light_hz, interval, exposure_s), info
+    try:
+        return measure_flicker(np.stack(profiles), times, light_hz, interval, exposure_s), info
+    except MeasurementRefused as exc:
+        raise MeasurementRefused(f"{clip}: {exc}") from None
 
 
 class _Measurer:

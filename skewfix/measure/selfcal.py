@@ -104,6 +104,12 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     if not np.isfinite(uncertainty) or depth < 0.02 or uncertainty > 0.25 * interval:
         raise MeasurementRefused(f"{info.path}: {STEADY_MESSAGE}")
     readout = abs(best)
+    if readout >= 0.97 * interval:
+        raise MeasurementRefused(
+            f"{info.path}: the best fit lies at the edge of the search (a readout of the whole frame "
+            f"interval, {interval * 1e3:.2f} ms), so the motion does not pin the readout down; "
+            "measure with --method flicker or --method pan"
+        )
     if line_order:
         order = line_order
     elif readout < 2 * uncertainty:
