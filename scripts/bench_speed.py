@@ -278,7 +278,7 @@ def print_table(pairs: dict[str, Pair], flicker: str, repeats: int, loads: list[
             f"{'fix fps':>7} {'plain CPU':>9} {'fix CPU':>8} {'CPU ratio':>9}")
     print(head)
     print("-" * len(head))
-    for key in ("1080", "4k", "prores"):
+    for key in ("1080", "1080lin", "4k", "prores"):
         p = pairs[key]
         mark = "" if p.same_format else "  (outputs differ in format!)"
         print(f"{p.spec.label:34} {p.spec.frames:6d} {p.plain_s:8.2f} {p.fix_s:8.2f} {p.ratio:8.2f}x  "

@@ -532,9 +532,9 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     caller measure the readout from the analysis (``--readout auto``).
     """
     from skewfix.encode import VideoSink, check_output_path
-    from skewfix.memory import keep_large_buffers_mapped
+    from skewfix.memory import limit_malloc_arenas
 
-    keep_large_buffers_mapped()
+    limit_malloc_arenas()
     check_output_path(input_path, output_path, options.force)
     with open_source(input_path, options.fps) as probe:  # refuse early, before any decoding
         probe_info = probe.info
