@@ -296,10 +296,18 @@ def check_output_path(input_path: str, output: str, force: bool) -> None:
             raise UsageProblem(f"{output}: OUTPUT is the same file as INPUT; the input is never overwritten")
         if out.exists() and not force:
             raise UsageProblem(f"{output}: already exists (add --force to replace it)")
-        if out.is_dir():
-            raise UsageProblem(f"{output}: is a folder; give a file name")
+    check_writable_file_path(output)
+
+
+def check_writable_file_path(path: str | os.PathLike, label: str = "") -> Path:
+    """Refuse a file path that is a folder, or whose folder is missing or not writable."""
+    out = Path(path)
+    name = f"{label} {path}".strip()
+    if out.is_dir():
+        raise UsageProblem(f"{name}: is a folder; give a file name")
     parent = out.parent if str(out.parent) else Path(".")
-    if not parent.exists():
-        raise UsageProblem(f"{output}: folder {parent} does not exist")
+    if not parent.is_dir():
+        raise UsageProblem(f"{name}: folder {parent} does not exist")
     if not os.access(parent, os.W_OK):
-        raise InputError(f"{output}: folder {parent} is not writable")
+        raise InputError(f"{name}: folder {parent} is not writable")
+    return out

@@ -84,14 +84,9 @@ def check_report_path(path: str | None, clip: str, what: str) -> Path | None:
     if os.path.realpath(out) == os.path.realpath(clip) or (
             out.exists() and Path(clip).exists() and os.path.samefile(out, clip)):
         raise UsageProblem(f"{what} {path}: is the clip itself; the input is never overwritten")
-    if out.is_dir():
-        raise UsageProblem(f"{what} {path}: is a folder; give a file name")
-    parent = out.parent if str(out.parent) else Path(".")
-    if not parent.is_dir():
-        raise UsageProblem(f"{what} {path}: folder {parent} does not exist")
-    if not os.access(parent, os.W_OK):
-        raise UsageProblem(f"{what} {path}: folder {parent} is not writable")
-    return out
+    from skewfix.encode import check_writable_file_path
+
+    return check_writable_file_path(out, what)
 
 
 def _finite_or_none(value):
