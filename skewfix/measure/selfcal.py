@@ -90,7 +90,7 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     order_idx = np.argsort(candidates)
     candidates, sums = candidates[order_idx], sums[order_idx]
     j = int(np.argmin(sums))
-    near = np.abs(candidates - candidates[j]) <= 1.01 * (fine[1] - fine[0]) * 3
+    near = np.abs(candidates - candidates[j]) <= 1.01 * (fine[1] - fine[0]) * 2
     best, curvature = _parabola_vertex(candidates[near], sums[near])
     best = float(np.clip(best, lo, hi))
     n_obs = int(np.max(n_fine))
