@@ -285,7 +285,8 @@ def main(argv=None):
             if args.only and args.only not in fn.__name__:
                 continue
             rows.append(fn(workdir))
-        print_table(rows)
+        if rows:
+            print_table(rows)
         ok = sum(r["ok"] for r in rows)
         print(f"targets met (error within target, line order as expected; f/fps whole "
               f"or nearly so must give undetermined): {ok}/{len(rows)}")

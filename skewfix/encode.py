@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+import uuid
 from fractions import Fraction
 from pathlib import Path
 
@@ -95,6 +96,16 @@ def partial_path(output: Path) -> Path:
     return Path(name)
 
 
+def partial_name(output: Path) -> Path:
+    """A unique hidden temporary name beside OUTPUT (not created), keeping its extension.
+
+    Knowing the name before the file exists lets an interrupt at any moment
+    remove it: there is no instant at which a file exists under a name we do
+    not hold yet.
+    """
+    return output.parent / f".{output.stem}.{uuid.uuid4().hex[:10]}.partial{output.suffix}"
+
+
 def _umask() -> int:
     mask = os.umask(0o022)
     os.umask(mask)
@@ -128,9 +139,8 @@ class VideoSink:
         self.pix_fmt, note = choose_pix_fmt(self.encoder, info.pix_fmt, info.bit_depth)
         if note:
             self.notes.append(note)
-        self.tmp = None
-        _UNFINISHED.add(self)  # first, so that even a Ctrl-C right after the file appears is cleaned up
-        self.tmp = partial_path(self.output)
+        self.tmp = partial_name(self.output)  # the muxer creates the file
+        _UNFINISHED.add(self)  # before the file exists, so a Ctrl-C at any point is cleaned up
         try:
             self.container = av.open(str(self.tmp), "w", options=muxer_options(self.output, info))
         except Exception as exc:
