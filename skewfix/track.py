@@ -40,7 +40,7 @@ def luma_proxy(luma: np.ndarray, bit_depth: int, proxy_size: int) -> tuple[np.nd
 @dataclass
 class TrackerSettings:
     proxy_size: int = 960
-    grid: tuple[int, int] = (16, 9)  # cells across and down for spreading features
+    grid: tuple[int, int] = (12, 7)  # cells across and down for spreading features (~100 tracks)
     per_cell: int = 2
     fast_threshold: int = 12
     window: int = 15  # the phase-correlation seed makes a large window unnecessary
