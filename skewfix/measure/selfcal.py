@@ -85,12 +85,18 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     step = coarse[1] - coarse[0]
     fine = np.linspace(max(lo, coarse[i] - 1.5 * step), min(hi, coarse[i] + 1.5 * step), 9)
     s_fine, n_fine = residual_curve(pairs, times, info.height, info.width, fine)
-    candidates = np.concatenate([coarse, fine])
-    sums = np.concatenate([s_coarse, s_fine])
+    k = int(np.argmin(s_fine))
+    fine_step = fine[1] - fine[0]
+    # a last, denser look around the best fine candidate: the residual curve can be
+    # lopsided, and a parabola is only a fair model of it close to the minimum
+    finest = np.linspace(max(lo, fine[k] - fine_step), min(hi, fine[k] + fine_step), 7)
+    s_finest, _ = residual_curve(pairs, times, info.height, info.width, finest)
+    candidates = np.concatenate([coarse, fine, finest])
+    sums = np.concatenate([s_coarse, s_fine, s_finest])
     order_idx = np.argsort(candidates)
     candidates, sums = candidates[order_idx], sums[order_idx]
     j = int(np.argmin(sums))
-    near = np.abs(candidates - candidates[j]) <= 1.01 * (fine[1] - fine[0]) * 2
+    near = np.abs(candidates - candidates[j]) <= 1.01 * fine_step
     best, curvature = _parabola_vertex(candidates[near], sums[near])
     best = float(np.clip(best, lo, hi))
     n_obs = int(np.max(n_fine))
