@@ -53,6 +53,7 @@ from fractions import Fraction
 from pathlib import Path
 
 from skewfix.errors import InputError, UsageProblem
+from skewfix.files import write_whole
 
 HEADER = "skewfix camera v1"
 SUFFIX = ".camera"
@@ -236,47 +237,6 @@ def format_camera(camera: SavedCamera) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _umask() -> int:
-    mask = os.umask(0o022)
-    os.umask(mask)
-    return mask
-
-
-def write_whole(path: Path, write) -> None:
-    """Call ``write(temporary_name)`` for a hidden name beside ``path``, then rename it into place.
-
-    The file appears whole or not at all, with the usual permissions (not the
-    private ones of a temporary file).
-    """
-    from skewfix.encode import partial_path
-
-    path = Path(path)
-    tmp = partial_path(path)
-    try:
-        write(str(tmp))
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-
-
-def write_text_whole(path: Path, text: str) -> None:
-    """Write ``text`` whole (temporary name, flush to disk, rename), creating the folder."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-
-    def write(tmp):
-        with open(tmp, "w", encoding="utf-8", newline="\n") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-
-    write_whole(path, write)
-
-
 def save_camera(name: str, estimate, info, clip: str | None = None) -> Path:
     """Save a `ReadoutEstimate` measured on a clip with `VideoInfo` ``info`` as NAME.
 
@@ -304,7 +264,8 @@ def save_camera(name: str, estimate, info, clip: str | None = None) -> Path:
     )
     path = camera_path(name)
     try:
-        write_text_whole(path, format_camera(camera))
+        path.parent.mkdir(parents=True, exist_ok=True)
+        write_whole(path, format_camera(camera))
     except OSError as exc:
         raise InputError(f"could not save camera {name!r} in {path.parent}: {exc.strerror or exc}") from None
     return path

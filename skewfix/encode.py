@@ -11,8 +11,6 @@ file; OUTPUT is never left half written.
 from __future__ import annotations
 
 import os
-import tempfile
-import uuid
 from fractions import Fraction
 from pathlib import Path
 
@@ -20,6 +18,7 @@ import numpy as np
 
 from skewfix.decode import VideoInfo, plane_layout
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+from skewfix.files import partial_name
 
 CODECS = {"h264": "libx264", "hevc": "libx265", "prores": "prores_ks", "ffv1": "ffv1"}
 # source codec name -> encoder we use to match it
@@ -82,34 +81,6 @@ def muxer_options(output: Path, info: VideoInfo) -> dict:
     if output.suffix.lower() in (".mp4", ".mov", ".m4v", ".3gp") and info.time_base:
         return {"movie_timescale": str(Fraction(info.time_base).denominator)}
     return {}
-
-
-def partial_path(output: Path) -> Path:
-    """A hidden temporary name beside OUTPUT that keeps its extension."""
-    fd, name = tempfile.mkstemp(prefix=f".{output.stem}.", suffix=f".partial{output.suffix}", dir=output.parent)
-    try:
-        os.close(fd)
-        os.chmod(name, 0o666 & ~_umask())  # mkstemp makes it owner-only; OUTPUT gets the usual mode
-    except BaseException:  # Ctrl-C included: leave nothing behind
-        os.unlink(name)
-        raise
-    return Path(name)
-
-
-def partial_name(output: Path) -> Path:
-    """A unique hidden temporary name beside OUTPUT (not created), keeping its extension.
-
-    Knowing the name before the file exists lets an interrupt at any moment
-    remove it: there is no instant at which a file exists under a name we do
-    not hold yet.
-    """
-    return output.parent / f".{output.stem}.{uuid.uuid4().hex[:10]}.partial{output.suffix}"
-
-
-def _umask() -> int:
-    mask = os.umask(0o022)
-    os.umask(mask)
-    return mask
 
 
 _UNFINISHED: set = set()  # sinks opened but neither finished nor aborted yet

@@ -74,6 +74,7 @@ import numpy as np
 
 from skewfix.decode import VideoInfo
 from skewfix.errors import InputError, SkewfixError, UsageProblem
+from skewfix.files import write_whole
 from skewfix.motion import MotionModel, MotionSegment
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, RowClock
 from skewfix.warp import WarpMap, correction_map
@@ -83,25 +84,6 @@ FORMAT_VERSION = 1
 CURVE_KEYS = ("pan_x_px", "pan_y_px", "roll_rad", "log_zoom")
 CSV_COLUMNS = ("frame", "time_s", "reference_time_s", "pan_x_px", "pan_y_px", "roll_deg", "zoom",
                "skew_x_px", "skew_y_px")
-
-
-def write_whole(path: str | os.PathLike, data: str | bytes) -> Path:
-    """Write a file under a hidden temporary name beside it, then rename it into place."""
-    from skewfix.encode import partial_path
-
-    target = Path(path)
-    tmp = partial_path(target)
-    try:
-        with open(tmp, "wb") as fh:
-            fh.write(data.encode("utf-8") if isinstance(data, str) else data)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # the temporary name was private (0600); give the usual mode
-        os.replace(tmp, target)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-    return target
 
 
 def check_new_file(path: str | os.PathLike, force: bool, option: str) -> None:
@@ -172,10 +154,11 @@ def save_motion(path: str | os.PathLike, model: MotionModel, clock: RowClock, re
 
 def map_skew(wm: WarpMap) -> tuple[float, float]:
     """Skew a correction map removes, px: (x shift of the bottom row against the top row,
-    extra height), from the full-size map's first and last rows, averaged over the columns."""
-    map_x, map_y = wm.full(wm.width, wm.height)
-    lean = float(np.mean(map_x[-1].astype(np.float64) - map_x[0]))
-    height = float(np.mean(map_y[-1].astype(np.float64) - map_y[0])) - (wm.height - 1)
+    extra height), from the map's first and last rows, averaged over the columns."""
+    top_x, top_y = wm.row(0)
+    bottom_x, bottom_y = wm.row(wm.height - 1)
+    lean = float(np.mean(bottom_x.astype(np.float64) - top_x))
+    height = float(np.mean(bottom_y.astype(np.float64) - top_y)) - (wm.height - 1)
     return lean, height
 
 

@@ -20,7 +20,6 @@ from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Callable
 
-import cv2
 import numpy as np
 
 from skewfix.decode import VideoInfo, open_source
@@ -28,7 +27,7 @@ from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion
 from skewfix.rowclock import RowClock
 from skewfix.track import PairTracker, TrackerSettings
-from skewfix.warp import WarpMap, correction_map, crop_zoom, outside_matte, remap_plane, reskew_map
+from skewfix.warp import WarpMap, correction_map, crop_zoom, remap_plane, reskew_map
 
 Progress = Callable[[str, int, "int | None"], None]
 IDENTITY_TOLERANCE_PX = 0.01  # a frame whose map moves nothing further is passed through untouched

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from skewfix.motion import MotionModel
-from skewfix.motionfile import write_whole
+from skewfix.files import write_whole
 from skewfix.rowclock import RowClock
 
 SAMPLES_PER_KNOT = 3

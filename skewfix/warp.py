@@ -50,6 +50,31 @@ class WarpMap:
         """True when no sample moves by more than ``tolerance`` pixels."""
         return float(np.max(np.abs(self.dx))) <= tolerance and float(np.max(np.abs(self.dy))) <= tolerance
 
+    def _absolute_coarse(self, fx: int = 1, fy: int = 1):
+        """Coarse absolute source coordinates in a plane subsampled by (fx, fy)."""
+        gx, gy = coarse_grid(self.width, self.height, self.cell)
+        ax = (gx + self.dx).astype(np.float32)
+        ay = (gy + self.dy).astype(np.float32)
+        if fx != 1:
+            ax = (ax + 0.5) * (1.0 / fx) - 0.5
+        if fy != 1:
+            ay = (ay + 0.5) * (1.0 / fy) - 0.5
+        return ax, ay
+
+    def row(self, y: int):
+        """Row ``y`` of ``full()`` (luma size) without upsampling the whole frame."""
+        ax, ay = self._absolute_coarse()
+        c = self.cell
+        s = (y + c + 0.5) / c - 0.5  # position of the row on the coarse grid, as cv2.resize places it
+        i = int(np.clip(np.floor(s), 0, ax.shape[0] - 2))
+        a = np.float32(s - i)
+        out = []
+        for coarse in (ax, ay):
+            line = (1 - a) * coarse[i] + a * coarse[i + 1]
+            wide = cv2.resize(line[None, :], (line.size * c, 1), interpolation=cv2.INTER_LINEAR)
+            out.append(wide[0, c:c + self.width])
+        return out[0], out[1]
+
     def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
         """Absolute source coordinates (map_x, map_y) for a plane of the given size.
 
@@ -62,13 +87,7 @@ class WarpMap:
         width = width or self.width
         height = height or self.height
         fx, fy = subsample
-        gx, gy = coarse_grid(self.width, self.height, self.cell)
-        ax = (gx + self.dx).astype(np.float32)
-        ay = (gy + self.dy).astype(np.float32)
-        if fx != 1:
-            ax = (ax + 0.5) * (1.0 / fx) - 0.5
-        if fy != 1:
-            ay = (ay + 0.5) * (1.0 / fy) - 0.5
+        ax, ay = self._absolute_coarse(fx, fy)
         cx, cy = self.cell // fx, self.cell // fy
         gh, gw = ax.shape
         size = (gw * cx, gh * cy)

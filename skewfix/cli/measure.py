@@ -14,7 +14,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.fix import choice, parse_rate
-from skewfix.cameras import write_text_whole, write_whole
+from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
 from skewfix.rowclock import parse_duration
@@ -101,7 +101,7 @@ def _finite_or_none(value):
 
 
 def write_json(path: Path, data: dict) -> None:
-    write_text_whole(path, json.dumps(_finite_or_none(data), indent=2, allow_nan=False) + "\n")
+    write_whole(path, json.dumps(_finite_or_none(data), indent=2, allow_nan=False) + "\n")
 
 
 def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):

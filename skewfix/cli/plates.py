@@ -124,6 +124,7 @@ class FixDeliverables:
         self._matte: StagedSequence | None = None
         self._matte_pattern: FramePattern | None = None
         self._still = (-1.0, None, None)  # (skew size, frame index, planes)
+        self._skew: dict[int, tuple[float, float]] = {}  # per frame, for the report
 
     @property
     def wants_frames(self) -> bool:
@@ -197,7 +198,8 @@ class FixDeliverables:
                 matte = outside_matte(map_x, map_y).astype(np.uint8) * 255
                 self._matte.write(k, matte)
         if self.report is not None:
-            size = float(np.sum(np.abs(map_skew(wm))))
+            self._skew[k] = map_skew(wm)
+            size = float(np.sum(np.abs(self._skew[k])))
             if size > self._still[0]:
                 self._still = (size, k, [np.array(p) for p in planes])
 
@@ -229,7 +231,11 @@ class FixDeliverables:
                 self._matte.commit()
                 said.append(f"matte: {self.matte}")
             if self.report is not None:
-                self._write_report(result, skew_per_frame(result.model, result.clock, self.reference_line))
+                # the skew seen while rendering; frames the render did not map are recomputed
+                n = len(result.clock.frame_times)
+                skew = (np.array([self._skew[k] for k in range(n)]) if len(self._skew) == n
+                        else skew_per_frame(result.model, result.clock, self.reference_line))
+                self._write_report(result, skew)
                 said.append(f"report: {self.report}")
         except BaseException:
             self.discard()
@@ -346,7 +352,8 @@ def preview_command(
 ):
     """Write a before/after still of one frame, with straight reference lines over both halves."""
     from skewfix.cli.fix import choice, parse_rate, readout_plan
-    from skewfix.motionfile import check_new_file, write_whole
+    from skewfix.files import write_whole
+    from skewfix.motionfile import check_new_file
     from skewfix.pipeline import FrameWarper, RenderSettings, analyse, solve
     from skewfix.warp import BORDERS
 
