@@ -25,14 +25,9 @@ import numpy as np
 from skewfix.motion import FitSettings
 from skewfix.pipeline import FixOptions, fix_clip
 from skewfix.synth.paths import Handheld, SteadyPan, WhipPan
-from skewfix.synth.residual import psnr, residual_flow_rms
+from skewfix.synth.residual import clip_residual, decode_rgb, psnr
 from skewfix.synth.scenes import photo_panorama
 from skewfix.synth.shutter import render_clip, to_uint8, write_rgb_clip
-
-
-def decode_rgb(path):
-    with av.open(str(path)) as c:
-        return [f.to_ndarray(format="rgb24") for f in c.decode(video=0)]
 
 
 def scenario(name, camera, rate, readout, frames, tmp, fit=None, width=960, height=540):
@@ -53,9 +48,9 @@ def scenario(name, camera, rate, readout, frames, tmp, fit=None, width=960, heig
     truth8 = [to_uint8(t) for t in truths]
     row = {
         "scenario": name,
-        "corrected_px": np.sqrt(np.mean([residual_flow_rms(fixed[k], truth8[k]) ** 2 for k in inner])),
-        "uncorrected_px": np.sqrt(np.mean([residual_flow_rms(orig[k], truth8[k]) ** 2 for k in inner])),
-        "floor_px": np.sqrt(np.mean([residual_flow_rms(floor[k], truth8[k]) ** 2 for k in inner])),
+        "corrected_px": clip_residual(fixed, truth8, inner),
+        "uncorrected_px": clip_residual(orig, truth8, inner),
+        "floor_px": clip_residual(floor, truth8, inner),
         "fix_s": seconds,
     }
     if readout == 0:

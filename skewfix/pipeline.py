@@ -25,7 +25,7 @@ import numpy as np
 from skewfix.decode import VideoInfo, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion
-from skewfix.rowclock import RowClock
+from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import WarpMap, correction_map, crop_zoom, remap_plane, reskew_map
 
@@ -159,6 +159,10 @@ class FrameWarper:
     def mappable(self, k: int, observed: int, finished: bool) -> bool:
         return True
 
+    def accepts(self, k: int) -> bool:
+        """Whether frame ``k`` has motion here (a file that grew since the analysis has more)."""
+        return k < len(self.clock.frame_times)
+
     #: most decoded frames the render loop may hold while waiting for ``mappable``
     lookahead_limit: int | None = None
 
@@ -260,6 +264,9 @@ class StreamingWarper(FrameWarper):
     @property
     def total(self):
         return expected_frames(self.info)
+
+    def accepts(self, k: int) -> bool:
+        return True  # every decoded frame is tracked and fitted
 
     # -- decoding thread --------------------------------------------------
     def observe(self, frame) -> None:
@@ -439,8 +446,7 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
                 continue
             kind, obj = item
             if kind == "frame":
-                if total is not None and isinstance(warper, FrameWarper) and not isinstance(warper, StreamingWarper) \
-                        and obj.index >= total:
+                if not warper.accepts(obj.index):
                     continue
                 waiting.append(obj)
                 observed = obj.index + 1
@@ -539,10 +545,9 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
         probe_info = probe.info
         if hasattr(probe, "read_rotation"):
             probe_info.rotation = probe.read_rotation()
-        interval = probe.info.frame_interval
-        if readout_resolver is None and interval and options.readout > interval * (1 + 1e-9):
+        if readout_resolver is None:
             try:
-                RowClock(np.array([0.0, interval]), probe.info.height, options.readout).check_readout_fits(interval)
+                check_readout_fits(options.readout, probe.info.frame_interval)
             except UsageProblem as exc:
                 raise UsageProblem(f"{input_path}: {exc}") from None
     times = StageTimes()
@@ -587,8 +592,7 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     except BaseException:
         if sink is not None:
             sink.abort()
-        if isinstance(warper, StreamingWarper):
-            warper.close()
+        warper.close()  # stops a streaming warper's fitting thread
         raise
     if analysis is None:
         clock, model = warper.whole_model()

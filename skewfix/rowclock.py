@@ -115,9 +115,14 @@ class RowClock:
 
     def check_readout_fits(self, nominal_interval: float | None = None) -> None:
         """Refuse a readout longer than the frame interval (rows would overlap frames)."""
-        interval = nominal_interval if nominal_interval else self.median_interval()
-        if np.isfinite(interval) and self.readout > interval * (1 + 1e-9):
-            raise UsageProblem(
-                f"readout {self.readout * 1e3:.3f} ms is longer than the frame interval "
-                f"{interval * 1e3:.3f} ms; a sensor cannot take longer to read a frame than the frame lasts"
-            )
+        check_readout_fits(self.readout, nominal_interval if nominal_interval else self.median_interval())
+
+
+def check_readout_fits(readout: float, interval: float | None) -> None:
+    """Refuse a readout longer than the frame interval: a sensor cannot take longer to
+    read a frame than the frame lasts."""
+    if interval is not None and np.isfinite(interval) and readout > interval * (1 + 1e-9):
+        raise UsageProblem(
+            f"readout {readout * 1e3:.3f} ms is longer than the frame interval "
+            f"{interval * 1e3:.3f} ms; a sensor cannot take longer to read a frame than the frame lasts"
+        )

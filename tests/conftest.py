@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from fractions import Fraction
 
-import numpy as np
 import pytest
 
+from skewfix.synth.residual import decode_rgb  # noqa: F401  (tests import it from here)
 from skewfix.synth.paths import Handheld, SteadyPan, WhipPan
 from skewfix.synth.scenes import photo_panorama
 from skewfix.synth.shutter import render_clip
@@ -47,10 +47,3 @@ def clip_factory(tmp_path_factory, panorama):
         return cache[key]
 
     return make
-
-
-def decode_rgb(path) -> list[np.ndarray]:
-    import av
-
-    with av.open(str(path)) as c:
-        return [f.to_ndarray(format="rgb24") for f in c.decode(video=0)]

@@ -43,3 +43,16 @@ def residual_flow_rms(test: np.ndarray, truth: np.ndarray, central: float = 0.76
 def psnr(a: np.ndarray, b: np.ndarray, peak: float = 255.0) -> float:
     mse = float(np.mean((a.astype(np.float64) - b.astype(np.float64)) ** 2))
     return float("inf") if mse == 0 else 10 * np.log10(peak * peak / mse)
+
+
+def decode_rgb(path) -> list[np.ndarray]:
+    """Every frame of a clip as RGB uint8 (for comparisons with the truth)."""
+    import av
+
+    with av.open(str(path)) as container:
+        return [frame.to_ndarray(format="rgb24") for frame in container.decode(video=0)]
+
+
+def clip_residual(frames, truths, indices) -> float:
+    """RMS over frames of `residual_flow_rms` of ``frames[k]`` against ``truths[k]``."""
+    return float(np.sqrt(np.mean([residual_flow_rms(frames[k], truths[k]) ** 2 for k in indices])))
