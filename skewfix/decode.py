@@ -98,8 +98,11 @@ def plane_layout(fmt) -> list[tuple[int, int, int]]:
     return [layout[i] for i in sorted(layout)]
 
 
-def frame_planes(frame) -> tuple[list[np.ndarray], list[tuple[int, int]]]:
-    """Numpy arrays (copies) of each plane of an `av.VideoFrame` at native depth."""
+def frame_planes(frame, pool=None) -> tuple[list[np.ndarray], list[tuple[int, int]]]:
+    """Numpy arrays (copies) of each plane of an `av.VideoFrame` at native depth.
+
+    With a `skewfix.buffers.PlanePool` the copies go into reused buffers.
+    """
     planes, subs = [], []
     for plane, (ch, nbytes, _bits) in zip(frame.planes, plane_layout(frame.format)):
         dtype = np.uint16 if nbytes == 2 else np.uint8
@@ -108,7 +111,12 @@ def frame_planes(frame) -> tuple[list[np.ndarray], list[tuple[int, int]]]:
         arr = arr[:, : plane.width * ch]
         if ch > 1:
             arr = arr.reshape(plane.height, plane.width, ch)
-        planes.append(np.array(arr))
+        if pool is None:
+            planes.append(np.array(arr))
+        else:
+            copy = pool.take(arr.shape, arr.dtype)
+            np.copyto(copy, arr)
+            planes.append(copy)
         subs.append((max(1, round(frame.width / plane.width)), max(1, round(frame.height / plane.height))))
     return planes, subs
 
@@ -201,6 +209,7 @@ class VideoSource:
         # flight, so a Ctrl-C on the main thread never frees the demuxer under it
         self._io_lock = threading.Lock()
         self._closed = False
+        self.pool = None  # a PlanePool for the decoded planes (set by the render loop)
 
     @property
     def container(self):
@@ -318,7 +327,7 @@ class VideoSource:
             t = Fraction(index) / rate
         start = t0 if t0 is not None else t
         frame = self._convert(frame)
-        planes, subs = frame_planes(frame)
+        planes, subs = frame_planes(frame, self.pool)
         depth = max((c.bits for c in frame.format.components), default=8)
         return DecodedFrame(index, float(t - start), frame.pts, planes, subs, depth, self.info.is_rgb, frame.format.name)
 

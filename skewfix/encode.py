@@ -129,6 +129,7 @@ class VideoSink:
             self.abort()
             raise
         self._frames = 0
+        self._frames_by_format: dict = {}
 
     # -- setup ------------------------------------------------------------
     def _add_video(self, crf, preset, threads):
@@ -198,7 +199,13 @@ class VideoSink:
     def write_planes(self, planes, pts, src_fmt: str, time_base=None):
         import av
 
-        frame = av.VideoFrame(self.info.width, self.info.height, src_fmt)
+        frame = self._frames_by_format.get(src_fmt)
+        if frame is None:
+            frame = self._frames_by_format[src_fmt] = av.VideoFrame(self.info.width, self.info.height, src_fmt)
+        else:
+            # one frame reused: fresh buffers every frame cost page faults. An encoder
+            # that still holds the last picture (frame threads) makes this copy it first.
+            frame.make_writable()
         fill_frame(frame, planes)
         if src_fmt != self.pix_fmt:
             frame = frame.reformat(format=self.pix_fmt)
@@ -255,6 +262,55 @@ class VideoSink:
     @property
     def frames_written(self) -> int:
         return self._frames
+
+
+class DeferredSink:
+    """A sink that opens its output when the first picture is written.
+
+    The encoder must know the display rotation before it writes a header, and
+    a clip says it in the first decoded frame's side data; opening late saves
+    decoding that frame twice (and opening the input a second time). Packets
+    of other streams that arrive first are held (a few kB: the look-ahead's
+    worth of audio) and copied once the output is open.
+    """
+
+    def __init__(self, opener):
+        self._opener = opener
+        self.sink = None
+        self._held: list = []
+
+    def _open(self):
+        if self.sink is None:
+            self.sink = self._opener()
+            held, self._held = self._held, []
+            for packet in held:
+                self.copy_packet(packet)
+        return self.sink
+
+    @property
+    def notes(self) -> list[str]:
+        return list(self.sink.notes) if self.sink is not None else []
+
+    def write_planes(self, planes, pts, src_fmt: str, time_base=None):
+        self._open().write_planes(planes, pts, src_fmt, time_base)
+
+    def copy_packet(self, packet):
+        if self.sink is None:
+            self._held.append(packet)
+        elif hasattr(self.sink, "copy_packet"):
+            self.sink.copy_packet(packet)
+
+    def finish(self):
+        return self._open().finish()
+
+    def abort(self) -> None:
+        self._held = []
+        if self.sink is not None:
+            self.sink.abort()
+
+    @property
+    def frames_written(self) -> int:
+        return self.sink.frames_written if self.sink is not None else 0
 
 
 def fill_frame(frame, planes) -> None:

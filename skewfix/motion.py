@@ -26,8 +26,6 @@ from dataclasses import dataclass, field
 
 import cv2
 import numpy as np
-import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
 from skewfix.rowclock import RowClock
 
@@ -206,11 +204,26 @@ def fit_motion(
     return model
 
 
-def _second_difference(n: int) -> sp.csr_matrix:
+def load_solver():
+    """SciPy's sparse modules, imported on first use.
+
+    Importing them costs about 0.2 s, a tenth of a short clip's transcode, so
+    the module does not import them at load time; the streaming fitter calls
+    this on its own thread while the first frames are still being decoded.
+    """
+    import scipy.sparse
+    import scipy.sparse.linalg
+
+    return scipy.sparse, scipy.sparse.linalg
+
+
+def _second_difference(n: int):
+    sp, _ = load_solver()
     return sp.diags([1.0, -2.0, 1.0], [0, 1, 2], shape=(max(n - 2, 0), n), format="csr")
 
 
 def _fit_segment(pairs, clock: RowClock, width, first, last, settings: FitSettings):
+    sp, spla = load_solver()
     interval = clock.median_interval()
     if not np.isfinite(interval) or interval <= 0:
         interval = 1.0 / 25

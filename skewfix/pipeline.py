@@ -22,9 +22,10 @@ from typing import Callable
 
 import numpy as np
 
+from skewfix.buffers import PlanePool
 from skewfix.decode import VideoInfo, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion
+from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion, load_solver
 from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import WarpMap, correction_map, crop_zoom, remap_plane, reskew_map
@@ -185,10 +186,14 @@ class FrameWarper:
         wm = self.map_for(k)
         return self.apply_map(wm, planes, subsampling), wm
 
+    #: where full-size maps and remapped planes come from (the render loop sets a shared one)
+    pool: PlanePool | None = None
+
     def apply_map(self, wm: WarpMap, planes, subsampling):
         """Remap every plane at its own size and depth (identity maps copy nothing)."""
         if wm.is_identity(IDENTITY_TOLERANCE_PX):
             return planes
+        pool = self.pool
         fills = black_levels(self.info, len(planes))
         maps = {}  # U and V share one map
         out = []
@@ -196,18 +201,23 @@ class FrameWarper:
             h, w = plane.shape[:2]
             key = (w, h, tuple(sub))
             if key not in maps:
-                maps[key] = wm.full(w, h, sub)
+                maps[key] = wm.full(w, h, sub, pool=pool)
             mx, my = maps[key]
             channels = plane.shape[2] if plane.ndim == 3 else 1
             # luma (and RGB) with cubic convolution; subsampled chroma bilinear (cheaper, and
             # chroma carries little fine detail)
             interp = self.settings.interpolation if tuple(sub) == (1, 1) else "linear"
+            dst = None if pool is None else pool.take(plane.shape, plane.dtype)
             out.append(remap_plane(plane, mx, my, "black" if self.settings.border == "black" else "edge",
-                                   (fill,) * channels if channels > 1 else fill, interp))
+                                   (fill,) * channels if channels > 1 else fill, interp, dst=dst))
+        if pool is not None:
+            for mx, my in maps.values():
+                pool.give(mx.base, my.base)
         return out
 
 
 LOOKAHEAD_BYTES = 400 * 2**20  # full frames allowed to wait for their window's fit
+FIRST_WINDOW = 8  # frames in the first fitted window (later ones double up to the full window)
 
 
 def window_for(info: VideoInfo, budget_bytes: int = LOOKAHEAD_BYTES) -> tuple[int, int]:
@@ -241,6 +251,7 @@ class StreamingWarper(FrameWarper):
         auto_window, auto_margin = window_for(info)
         self.window = window or auto_window
         self.margin = auto_margin if margin is None else margin
+        self.first_window = min(FIRST_WINDOW, self.window)
         self.stage_times = times or StageTimes()
         # enough for one window and its context to be complete, so the fit can always start
         self.lookahead_limit = self.window + 2 * self.margin + 1
@@ -289,11 +300,22 @@ class StreamingWarper(FrameWarper):
             self._cond.notify_all()
 
     # -- fitting thread ---------------------------------------------------
+    def window_from(self, start: int) -> int:
+        """Frames in the window that starts at frame ``start``.
+
+        The first windows are short and double in size (8, 8, 16, 32, ...),
+        so the first frames reach the encoder after about 14 decoded frames
+        rather than ``window + margin``; later windows are full size.
+        """
+        return max(1, min(self.window, max(self.first_window, start)))
+
     def _fit_loop(self) -> None:
         try:
+            load_solver()  # the solver's import overlaps the first frames' decoding
             while True:
                 with self._cond:
-                    while not self._closed and self._observed < self._fitted_until + self.window + self.margin:
+                    while (not self._closed
+                           and self._observed < self._fitted_until + self.window_from(self._fitted_until) + self.margin):
                         self._cond.wait()
                     observed = self._observed
                     if self._fitted_until >= observed:
@@ -307,7 +329,7 @@ class StreamingWarper(FrameWarper):
     def _fit_next(self, observed: int) -> None:
         t0 = time.perf_counter()
         a = self._fitted_until
-        b = min(a + self.window, observed)
+        b = min(a + self.window_from(a), observed)
         if observed - b < self.margin // 2:  # do not leave a stub of a window at the end
             b = observed
         lo = max(0, a - self.margin)
@@ -389,19 +411,24 @@ def _run_thread(target, out_q: queue.Queue, errors: list):
 
 def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, progress: Progress = _quiet,
            times: StageTimes | None = None, on_frame=None, stop: threading.Event | None = None,
-           report: dict | None = None) -> int:
+           report: dict | None = None, source=None) -> int:
     """Decode, warp and encode every frame; copies other streams packet for packet.
 
     Three threads joined by bounded queues: decoding (plus tracking, for a
     `StreamingWarper`), warping (with the warper's look-ahead), and encoding
     on the calling thread. ``on_frame(k, warp_map, planes_out)`` is called for
     every frame (maps, mattes, reports); ``report`` receives damaged-packet
-    counts. Returns the number of frames written.
+    counts. ``source`` is ``path`` already opened (it is closed at the end).
+    Returns the number of frames written.
     """
     times = times or StageTimes()
     stop = stop or threading.Event()
-    source = open_source(path, fps)
+    source = source if source is not None else open_source(path, fps)
     depth = warper.settings.queue_depth
+    # decoded and remapped planes are reused once encoded (no page faults per frame)
+    pool = PlanePool(limit=(warper.lookahead_limit or 0) + 2 * depth + 4)
+    source.pool = pool
+    warper.pool = pool
     decoded: queue.Queue = queue.Queue(maxsize=depth)
     warped: queue.Queue = queue.Queue(maxsize=depth)
     errors: list = []
@@ -467,9 +494,12 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
                 if kind == "packet":
                     sink.copy_packet(obj)
                     continue
+                sink.write_planes(planes, obj.pts, obj.pix_fmt)  # opens a deferred sink: before on_frame
                 if on_frame is not None:
                     on_frame(obj.index, wm, planes)
-                sink.write_planes(planes, obj.pts, obj.pix_fmt)
+                pool.give(*obj.planes)  # the encoder has copied them: free for reuse
+                if planes is not obj.planes:
+                    pool.give(*planes)
                 times.encode += time.perf_counter() - t
                 written += 1
                 progress("render", written, total)
@@ -536,20 +566,30 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     ``readout_resolver(analysis) -> (readout_s, line_order, origin)`` lets the
     caller measure the readout from the analysis (``--readout auto``).
     """
-    from skewfix.encode import VideoSink, check_output_path
+    from skewfix.encode import check_output_path
     from skewfix.memory import limit_malloc_arenas
 
     limit_malloc_arenas()
     check_output_path(input_path, output_path, options.force)
-    with open_source(input_path, options.fps) as probe:  # refuse early, before any decoding
-        probe_info = probe.info
-        if hasattr(probe, "read_rotation"):
-            probe_info.rotation = probe.read_rotation()
-        if readout_resolver is None:
-            try:
-                check_readout_fits(options.readout, probe.info.frame_interval)
-            except UsageProblem as exc:
-                raise UsageProblem(f"{input_path}: {exc}") from None
+    # opened once: probed here (refusing early, before any decoding), then streamed by the render
+    source = open_source(input_path, options.fps)
+    try:
+        return _fix_source(source, input_path, output_path, options, progress, on_frame, readout_resolver,
+                           sink_factory)
+    finally:
+        source.close()
+
+
+def _fix_source(source, input_path, output_path, options: FixOptions, progress, on_frame, readout_resolver,
+                sink_factory) -> FixResult:
+    from skewfix.encode import DeferredSink, VideoSink
+
+    probe_info = source.info
+    if readout_resolver is None:
+        try:
+            check_readout_fits(options.readout, probe_info.frame_interval)
+        except UsageProblem as exc:
+            raise UsageProblem(f"{input_path}: {exc}") from None
     times = StageTimes()
     notes: list[str] = []
     settings = RenderSettings(options.reference_line, options.border, interpolation=options.interpolation)
@@ -571,27 +611,29 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
         warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times)
         analysis = None
     report: dict = {}
-    sink = None
-    try:
-        if sink_factory is not None:
-            sink = sink_factory(info)
-        else:
-            import av
+    template = getattr(source, "container", None)  # the input's other streams are copied from it
 
-            with av.open(input_path) as template:
-                sink = VideoSink(output_path, info, codec=options.codec, crf=options.crf,
-                                 preset=options.preset, source_container=template, threads=options.threads)
-        notes.extend(sink.notes)
-        written = render(input_path, sink, warper, options.fps, progress, times, on_frame, report=report)
+    def open_output():
+        # called with the first corrected picture: the first frame has told the rotation by then
+        with getattr(source, "_io_lock", threading.Lock()):  # the decoder thread may be demuxing
+            if sink_factory is not None:
+                return sink_factory(info, template)
+            return VideoSink(output_path, info, codec=options.codec, crf=options.crf, preset=options.preset,
+                             source_container=template, threads=options.threads)
+
+    sink = DeferredSink(open_output)
+    try:
+        written = render(input_path, sink, warper, options.fps, progress, times, on_frame, report=report,
+                         source=source)
         if analysis is not None and written != analysis.n_frames:
             raise RuntimeProblem(f"{input_path}: the second pass decoded {written} frames, the first "
                                  f"{analysis.n_frames}; the file may be changing; nothing was written")
         if written == 0:
             raise InputError(f"{input_path}: no frame could be decoded")
         sink.finish()
+        notes.extend(sink.notes)
     except BaseException:
-        if sink is not None:
-            sink.abort()
+        sink.abort()
         warper.close()  # stops a streaming warper's fitting thread
         raise
     if analysis is None:

@@ -449,8 +449,11 @@ class ImageSequenceSink:
 
 
 def open_sink(input_path: str, output: str, info: VideoInfo, *, codec=None, crf=None, preset=None,
-              depth: int | None = None, force: bool = False, threads=None):
-    """The sink for OUTPUT: an image sequence for a pattern, else a clip (copying a clip INPUT's other streams)."""
+              depth: int | None = None, force: bool = False, threads=None, template=None):
+    """The sink for OUTPUT: an image sequence for a pattern, else a clip (copying a clip INPUT's other streams).
+
+    ``template`` is INPUT's open container, if the caller has one (saves opening it again).
+    """
     if is_pattern(output):
         if codec is not None:
             raise UsageProblem("--codec applies to video output; an image sequence takes its type from "
@@ -462,6 +465,9 @@ def open_sink(input_path: str, output: str, info: VideoInfo, *, codec=None, crf=
 
     if info.is_sequence:
         return VideoSink(output, info, codec=codec, crf=crf, preset=preset, threads=threads)
+    if template is not None:
+        return VideoSink(output, info, codec=codec, crf=crf, preset=preset, source_container=template,
+                         threads=threads)
     import av
 
     with av.open(input_path) as template:

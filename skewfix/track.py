@@ -34,6 +34,8 @@ def luma_proxy(luma: np.ndarray, bit_depth: int, proxy_size: int) -> tuple[np.nd
         img = cv2.convertScaleAbs(img, alpha=255.0 / ((1 << bit_depth) - 1))
     if scale < 1.0:
         img = cv2.resize(img, (int(round(w * scale)), int(round(h * scale))), interpolation=cv2.INTER_AREA)
+    elif img is luma:
+        img = luma.copy()  # the tracker keeps the proxy; the render loop reuses the plane's buffer
     return img, scale
 
 
@@ -130,7 +132,7 @@ def spread_corners(img: np.ndarray, grid=(16, 9), per_cell: int = 2, threshold: 
     keypoints = detector.detect(img, None)
     if not keypoints:
         return np.zeros((0, 2), np.float32)
-    pts = np.array([kp.pt for kp in keypoints], np.float32)
+    pts = cv2.KeyPoint_convert(keypoints).reshape(-1, 2).astype(np.float32, copy=False)
     response = np.array([kp.response for kp in keypoints], np.float32)
     h, w = img.shape[:2]
     border = 8  # keep the LK window inside the picture

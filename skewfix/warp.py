@@ -75,7 +75,7 @@ class WarpMap:
             out.append(wide[0, c:c + self.width])
         return out[0], out[1]
 
-    def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1)):
+    def full(self, width: int | None = None, height: int | None = None, subsample=(1, 1), pool=None):
         """Absolute source coordinates (map_x, map_y) for a plane of the given size.
 
         ``subsample`` is the plane's (horizontal, vertical) subsampling factor.
@@ -83,6 +83,8 @@ class WarpMap:
         interpolation reproduces the identity ramp exactly, so no per-pixel
         addition is needed. A chroma plane's coordinates are the luma ones
         mapped through ``u = (x + 0.5) / f - 0.5`` (centre-sited samples).
+        With a `skewfix.buffers.PlanePool` the maps are views into its
+        buffers; give their ``base`` back when done.
         """
         width = width or self.width
         height = height or self.height
@@ -91,9 +93,12 @@ class WarpMap:
         cx, cy = self.cell // fx, self.cell // fy
         gh, gw = ax.shape
         size = (gw * cx, gh * cy)
-        mx = cv2.resize(ax, size, interpolation=cv2.INTER_LINEAR)[cy:cy + height, cx:cx + width]
-        my = cv2.resize(ay, size, interpolation=cv2.INTER_LINEAR)[cy:cy + height, cx:cx + width]
-        return mx, my
+        maps = []
+        for coarse in (ax, ay):
+            dst = None if pool is None else pool.take((size[1], size[0]), np.float32)
+            wide = cv2.resize(coarse, size, dst=dst, interpolation=cv2.INTER_LINEAR)
+            maps.append(wide[cy:cy + height, cx:cx + width])
+        return maps[0], maps[1]
 
 
 @lru_cache(maxsize=32)
@@ -169,13 +174,15 @@ INTERPOLATIONS = {"linear": cv2.INTER_LINEAR, "cubic": cv2.INTER_CUBIC}
 
 
 def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border: str = "edge", fill=0,
-                interpolation: str = "cubic") -> np.ndarray:
+                interpolation: str = "cubic", dst: np.ndarray | None = None) -> np.ndarray:
     """Resample one plane (uint8/uint16/float32, 1-4 channels) at its own depth.
 
     ``cubic`` is OpenCV's cubic convolution (Keys, 1981); ``linear`` is bilinear.
+    ``dst``, if given, receives the result (same shape and dtype as ``plane``).
     """
     mode = cv2.BORDER_CONSTANT if border == "black" else cv2.BORDER_REPLICATE
-    return cv2.remap(plane, map_x, map_y, INTERPOLATIONS[interpolation], borderMode=mode, borderValue=fill)
+    return cv2.remap(plane, map_x, map_y, INTERPOLATIONS[interpolation], dst=dst, borderMode=mode,
+                     borderValue=fill)
 
 
 def outside_matte(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:

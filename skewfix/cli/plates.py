@@ -172,7 +172,7 @@ class FixDeliverables:
     def _map_pattern(self, name: str) -> FramePattern:
         return parse_pattern(str(Path(self.maps_dir) / f"{name}.%04d.tif"))
 
-    def sink_factory(self, info):
+    def sink_factory(self, info, template=None):
         self.info = info
         first = output_first_number(info)
         try:
@@ -181,7 +181,8 @@ class FixDeliverables:
                     self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force, create_folder=True)
             if self._matte_pattern is not None:
                 self._matte = StagedSequence(self._matte_pattern, first, self.force)
-            return open_sink(self.input, self.output, info, force=self.force, **self.sink_options)
+            return open_sink(self.input, self.output, info, force=self.force, template=template,
+                             **self.sink_options)
         except BaseException:
             self.discard()
             raise
@@ -286,7 +287,7 @@ def reskew_command(
     """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
     from skewfix.cli.fix import choice, parse_rate
     from skewfix.decode import open_source
-    from skewfix.encode import CODECS, check_output_path
+    from skewfix.encode import CODECS, DeferredSink, check_output_path
     from skewfix.motionfile import load_motion
     from skewfix.pipeline import FrameWarper, RenderSettings, render
 
@@ -314,10 +315,13 @@ def reskew_command(
         raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
                          "reskew needs the same frame count")
     warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
-    sink = open_sink(input, output, info, codec=codec, crf=crf, depth=depth, force=force)
+    source = open_source(input, rate)
+    # opened with the first picture, when the first frame has told the display rotation
+    sink = DeferredSink(lambda: open_sink(input, output, source.info, codec=codec, crf=crf, depth=depth,
+                                          force=force, template=getattr(source, "container", None)))
     try:
         with TerminalProgress(quiet) as progress:
-            written = render(input, sink, warper, rate, progress)
+            written = render(input, sink, warper, rate, progress, source=source)
         if written != expected:
             raise RuntimeProblem(f"{input}: {written} frames could be read of {expected}; nothing was written")
         sink.finish()
