@@ -12,10 +12,12 @@ Two streaming passes over the input, neither holding the clip in memory:
 
 from __future__ import annotations
 
+import os
 import queue
 import threading
 import time
 from collections import deque
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Callable
@@ -218,6 +220,11 @@ class FrameWarper:
 
 LOOKAHEAD_BYTES = 400 * 2**20  # full frames allowed to wait for their window's fit
 FIRST_WINDOW = 8  # frames in the first fitted window (later ones double up to the full window)
+# Frames per fitted window at most. The look-ahead (and so the peak memory) grows with it;
+# 16 keeps a 240-frame 1080p fix within a few per cent of a 60-frame one (a 60-frame clip
+# already reaches the steady look-ahead), for a few per cent more fitting than 32.
+MAX_WINDOW = 16
+MARGIN = 4  # frames of context fitted on each side of a window (the spline needs a frame or two)
 
 
 def window_for(info: VideoInfo, budget_bytes: int = LOOKAHEAD_BYTES) -> tuple[int, int]:
@@ -226,8 +233,8 @@ def window_for(info: VideoInfo, budget_bytes: int = LOOKAHEAD_BYTES) -> tuple[in
     chroma = 3.0 if info.is_rgb or "444" in info.pix_fmt else 2.0 if "422" in info.pix_fmt else 1.5
     frame_bytes = info.width * info.height * sample * chroma
     frames = max(10, int(budget_bytes // max(frame_bytes, 1)))
-    margin = min(6, frames // 3)
-    window = max(4, min(32, frames - 2 * margin))
+    margin = min(MARGIN, frames // 3)
+    window = max(4, min(MAX_WINDOW, frames - 2 * margin))
     return window, margin
 
 
@@ -303,7 +310,7 @@ class StreamingWarper(FrameWarper):
     def window_from(self, start: int) -> int:
         """Frames in the window that starts at frame ``start``.
 
-        The first windows are short and double in size (8, 8, 16, 32, ...),
+        The first windows are short and double in size (8, 8, 16, ...),
         so the first frames reach the encoder after about 14 decoded frames
         rather than ``window + margin``; later windows are full size.
         """
@@ -573,11 +580,38 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     check_output_path(input_path, output_path, options.force)
     # opened once: probed here (refusing early, before any decoding), then streamed by the render
     source = open_source(input_path, options.fps)
+    with opencv_threads(opencv_threads_for_render()):
+        try:
+            return _fix_source(source, input_path, output_path, options, progress, on_frame, readout_resolver,
+                               sink_factory)
+        finally:
+            source.close()
+
+
+def opencv_threads_for_render(cores: int | None = None) -> int:
+    """OpenCV's own worker threads while rendering: half the cores, at least one.
+
+    The render already runs decoding, fitting, warping and encoding on threads
+    of their own, and the encoder takes every core it is given; OpenCV's idle
+    workers spin while they wait. On two cores, one OpenCV thread measured
+    about 0.4 s less CPU per 60 frames of 1080p at the same speed
+    (`scripts/bench_speed.py`, DEVELOPERS.md).
+    """
+    cores = cores or os.cpu_count() or 1
+    return max(1, cores // 2)
+
+
+@contextmanager
+def opencv_threads(count: int):
+    """Set OpenCV's thread count for a block, then put the caller's back."""
+    import cv2
+
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(count)
     try:
-        return _fix_source(source, input_path, output_path, options, progress, on_frame, readout_resolver,
-                           sink_factory)
+        yield
     finally:
-        source.close()
+        cv2.setNumThreads(before)
 
 
 def _fix_source(source, input_path, output_path, options: FixOptions, progress, on_frame, readout_resolver,

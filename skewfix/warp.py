@@ -127,11 +127,15 @@ def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: 
     px, py = _zoom_about_centre(gx, gy, w, h, zoom) if zoom != 1.0 else (gx, gy)
     seg = model.segment_for(k)
     t_ref = float(clock.reference_time(k, reference_line))
-    qx, qy = model.world_from_image(seg, np.full(px.shape, t_ref), px, py)
+    qx, qy = model.world_from_image(seg, np.float64(t_ref), px, py)  # one instant for the whole frame
+    # the source rows lie near the frame: tabulate the curves over its readout and a frame's
+    # height either side (rows further out are evaluated exactly)
+    t_a, t_b = (float(clock.row_time(k, y)) for y in (-h, 2.0 * h))
+    table = seg.tabulated(min(t_a, t_b), max(t_a, t_b), samples=513)
     ys = py.copy()
     for _ in range(iterations):
         ts = clock.row_time(k, ys)  # rows past the edges extrapolate the clock smoothly
-        xs, ys = model.image_from_world(seg, ts, qx, qy)
+        xs, ys = model.image_from_world(table, ts, qx, qy)
     return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
 
 
