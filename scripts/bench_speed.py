@@ -11,6 +11,10 @@ source, the time in each stage of fix, the peak memory of fix on a clip and on
 one four times longer, and the time of `skewfix measure --method flicker`.
 
     python scripts/bench_speed.py [--quick] [--repeats N] [--profile]
+    python scripts/bench_speed.py --costs
+
+``--costs`` instead times each stage alone on one thread at 1080p and prints
+the ratio those costs allow at best (every core busy in both jobs).
 
 Times are the smallest of the repeats (the least disturbed run); only ratios
 measured in the same run are comparable. ``--profile`` adds a cProfile of one
@@ -387,11 +391,106 @@ def profile_fix(spec: ClipSpec, work: Path, top: int = 12) -> None:
         print(f"    {100 * own / wall:5.1f}%  {own:6.2f} s  {calls:6d} calls  {where}")
 
 
+# -- cost of each stage on one core ------------------------------------------------------
+
+def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
+    """CPU milliseconds per frame of each stage run alone on one thread, and what they imply.
+
+    Buffers are reused and every stage is warmed up first, so page faults and
+    imports are left out. The floor is the fix/plain ratio if both jobs kept
+    every core busy: (plain CPU + skewfix's own stages) / plain CPU.
+    """
+    import av
+    import cv2
+    import numpy as np
+
+    from skewfix.buffers import PlanePool
+    from skewfix.decode import VideoInfo, frame_planes
+    from skewfix.motion import fit_motion
+    from skewfix.pipeline import FrameWarper, RenderSettings, window_for
+    from skewfix.rowclock import RowClock
+    from skewfix.track import PairTracker
+    from skewfix.warp import correction_map
+
+    spec.render()
+    cv2.setNumThreads(1)
+    with av.open(str(spec.file)) as c:
+        stream = c.streams.video[0]
+        stream.thread_type = "SLICE"
+        t = time.thread_time()
+        decoded = [f for _, f in zip(range(frames), c.decode(stream))]
+        cost = {"decode (FFmpeg, one thread)": time.thread_time() - t}
+    pool = PlanePool(limit=8)
+    frame_planes(decoded[0], pool)
+    t = time.thread_time()
+    planes = []
+    for f in decoded:
+        planes.append(frame_planes(f, pool))
+        pool.give(*planes[-1][0])
+    cost["copy planes out of the decoder"] = time.thread_time() - t
+    planes = [frame_planes(f) for f in decoded]
+    tracker, pairs = PairTracker(), []
+    t = time.thread_time()
+    for p, _subs in planes:
+        obs = tracker.push(p[0])
+        if obs is not None:
+            pairs.append(obs)
+    cost["track (proxy, corners, phase seed, LK both ways)"] = time.thread_time() - t
+    clock = RowClock(np.arange(frames) / float(RATE), spec.height, spec.readout)
+    vinfo = VideoInfo(str(spec.file), spec.width, spec.height, "yuv420p", 8, "h264", None, RATE, Fraction(1, 25),
+                      frames, None)
+    window, margin = window_for(vinfo)
+    fit_motion(pairs, clock, spec.width)  # warm-up (imports SciPy)
+    t = time.thread_time()
+    model = fit_motion(pairs, clock, spec.width)
+    cost[f"fit (x{(window + 2 * margin) / window:.2f}: windows overlap)"] = \
+        (time.thread_time() - t) * (window + 2 * margin) / window
+    t = time.thread_time()
+    maps = [correction_map(model, clock, k) for k in range(frames)]
+    cost["coarse warp map"] = time.thread_time() - t
+    for interp in ("cubic", "linear"):
+        warper = FrameWarper.__new__(FrameWarper)
+        warper.settings, warper.info, warper.pool = RenderSettings(interpolation=interp), vinfo, PlanePool()
+        pool.give(*warper.apply_map(maps[0], planes[0][0], planes[0][1]))
+        t = time.thread_time()
+        for wm, (p, subs) in zip(maps, planes):
+            warper.pool.give(*warper.apply_map(wm, p, subs))
+        cost[f"upsample maps + remap planes ({interp})"] = time.thread_time() - t
+    encoder, options = ENCODE[spec.codec]
+    with tempfile.TemporaryDirectory() as tmp, av.open(str(Path(tmp) / "e.mp4"), "w") as out:
+        st = out.add_stream(encoder, rate=RATE)
+        st.width, st.height, st.pix_fmt, st.options = spec.width, spec.height, "yuv420p", dict(options)
+        cpu = time.process_time()
+        for i, f in enumerate(decoded):
+            f.pts = i
+            for packet in st.encode(f):
+                out.mux(packet)
+        for packet in st.encode():
+            out.mux(packet)
+        cost["encode (x264, all its threads)"] = time.process_time() - cpu
+    per = {k: 1e3 * v / frames for k, v in cost.items()}
+    print()
+    print(f"cost of each stage, {spec.label}, {frames} frames, CPU ms per frame on one thread "
+          "(buffers reused, warmed up)")
+    for k, v in per.items():
+        print(f"  {k:48} {v:7.2f}")
+    plain = per["decode (FFmpeg, one thread)"] + per["encode (x264, all its threads)"]
+    ours = {interp: sum(v for k, v in per.items() if k not in ("decode (FFmpeg, one thread)",
+                                                                  "encode (x264, all its threads)")
+                       and not (k.startswith("upsample") and interp not in k))
+            for interp in ("cubic", "linear")}
+    for interp, extra in ours.items():
+        print(f"  floor with {interp:6}: ({plain:.1f} + {extra:.1f}) / {plain:.1f} = {(plain + extra) / plain:.2f}x "
+              "(fix/plain if every core were busy in both)")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true", help="shorter clips and one repeat (a smoke run)")
     ap.add_argument("--repeats", type=int, default=None, help="alternating runs of each job (default 2, quick 1)")
     ap.add_argument("--profile", action="store_true", help="also profile one 1080p fix")
+    ap.add_argument("--costs", action="store_true",
+                    help="only the CPU cost of each stage on one thread at 1080p, and the floor it implies")
     argv = sys.argv[1:] if argv is None else list(argv)
     if argv[:1] == ["--child"]:  # internal: one measured job in a fresh process
         child_main(*argv[1:])
@@ -399,6 +498,9 @@ def main(argv=None):
     args = ap.parse_args(argv)
     repeats = args.repeats or (1 if args.quick else 2)
     specs = clip_specs(args.quick)
+    if args.costs:
+        stage_costs(specs["1080"])
+        return 0
     with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
         work = Path(tmp)
         for spec in specs.values():
