@@ -461,31 +461,41 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
         waiting: deque = deque()  # the look-ahead: frames decoded but not yet mappable
         observed, finished = 0, False
         limit = warper.lookahead_limit
-        while True:
-            # a full look-ahead waits for the fit (bounded memory) instead of decoding on
+
+        def take(item) -> None:
+            nonlocal observed, finished
+            if item is _END:
+                finished = True
+                return
+            kind, obj = item
+            if kind == "packet":
+                warped.put(("packet", obj, None, None))
+            elif warper.accepts(obj.index):
+                waiting.append(obj)
+                observed = obj.index + 1
+
+        while not stop.is_set():
+            # take in whatever the decoder has ready, so that it keeps decoding (and the next
+            # window's tracks keep coming) while this window's frames are remapped and encoded
+            while not finished and (limit is None or len(waiting) < limit):
+                try:
+                    take(decoded.get_nowait())
+                except queue.Empty:
+                    break
+            # a full look-ahead waits for the fit (bounded memory) instead of decoding on;
+            # once the input has ended, every waiting frame waits for its fit
             full = limit is not None and len(waiting) >= limit
-            while waiting and warper.mappable(waiting[0].index, observed, finished or full):
-                full = False
+            if waiting and warper.mappable(waiting[0].index, observed, finished or full):
                 frame = waiting.popleft()
                 t = time.perf_counter()
                 planes, wm = warper.apply(frame.index, frame.planes, frame.subsampling)
                 warper.release_before(frame.index)
                 times.remap += time.perf_counter() - t
                 warped.put(("frame", frame, planes, wm))
-            if finished or stop.is_set():
-                return
-            item = decoded.get()
-            if item is _END:
-                finished = True
                 continue
-            kind, obj = item
-            if kind == "frame":
-                if not warper.accepts(obj.index):
-                    continue
-                waiting.append(obj)
-                observed = obj.index + 1
-            else:
-                warped.put(("packet", obj, None, None))
+            if finished:
+                return
+            take(decoded.get())  # nothing to map yet: wait for the decoder
 
     with source:
         t_dec = _run_thread(decode_stage, decoded, errors)
