@@ -172,6 +172,9 @@ class FrameWarper:
     def close(self) -> None:
         """Called when the decoder has delivered its last frame."""
 
+    def cancel(self) -> None:
+        """The render failed or was stopped: end any work of the warper's own, and wait for it."""
+
     def release_before(self, k: int) -> None:
         """Frames before ``k`` are done (a streaming warper may free their fits)."""
 
@@ -269,6 +272,7 @@ class StreamingWarper(FrameWarper):
         self.track_counts: dict[int, int] = {}
         self._observed = 0
         self._closed = False
+        self._cancelled = False
         self._fitted_until = 0
         self._fit_error: BaseException | None = None
         self._windows: list[tuple[int, int, int, MotionModel, RowClock]] = []
@@ -276,7 +280,7 @@ class StreamingWarper(FrameWarper):
         self.cuts: list[int] = []
         self.unmeasured: list[int] = []
         self.inliers: list[float] = []
-        self._fitter = threading.Thread(target=self._fit_loop, daemon=True)
+        self._fitter = threading.Thread(target=self._fit_loop, name="skewfix-fit", daemon=True)
         self._fitter.start()
 
     @property
@@ -306,6 +310,15 @@ class StreamingWarper(FrameWarper):
             self._closed = True
             self._cond.notify_all()
 
+    def cancel(self) -> None:
+        """Fit nothing more and wait for a fit in progress, so that no thread of ours is
+        still inside OpenCV or SciPy when the caller (or the interpreter) moves on."""
+        with self._cond:
+            self._closed = self._cancelled = True
+            self._cond.notify_all()
+        if self._fitter is not threading.current_thread():
+            self._fitter.join()
+
     # -- fitting thread ---------------------------------------------------
     def window_from(self, start: int) -> int:
         """Frames in the window that starts at frame ``start``.
@@ -325,7 +338,7 @@ class StreamingWarper(FrameWarper):
                            and self._observed < self._fitted_until + self.window_from(self._fitted_until) + self.margin):
                         self._cond.wait()
                     observed = self._observed
-                    if self._fitted_until >= observed:
+                    if self._cancelled or self._fitted_until >= observed:
                         return
                 self._fit_next(observed)
         except BaseException as exc:  # noqa: BLE001 - reported to the warp thread
@@ -403,7 +416,7 @@ class StreamingWarper(FrameWarper):
 _END = object()
 
 
-def _run_thread(target, out_q: queue.Queue, errors: list):
+def _run_thread(target, out_q: queue.Queue, errors: list, name: str):
     def body():
         try:
             target()
@@ -411,7 +424,7 @@ def _run_thread(target, out_q: queue.Queue, errors: list):
             errors.append(exc)
         finally:
             out_q.put(_END)
-    th = threading.Thread(target=body, daemon=True)
+    th = threading.Thread(target=body, name=name, daemon=True)
     th.start()
     return th
 
@@ -498,8 +511,8 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
             take(decoded.get())  # nothing to map yet: wait for the decoder
 
     with source:
-        t_dec = _run_thread(decode_stage, decoded, errors)
-        t_warp = _run_thread(warp_stage, warped, errors)
+        t_dec = _run_thread(decode_stage, decoded, errors, "skewfix-decode")
+        t_warp = _run_thread(warp_stage, warped, errors, "skewfix-warp")
         written = 0
         try:
             while True:
@@ -678,7 +691,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
         notes.extend(sink.notes)
     except BaseException:
         sink.abort()
-        warper.close()  # stops a streaming warper's fitting thread
+        warper.cancel()  # ends a streaming warper's fitting thread before anything else happens
         raise
     if analysis is None:
         clock, model = warper.whole_model()

@@ -5,8 +5,11 @@ correction itself is checked against outside references in test_fix.py and
 test_warp.py.
 """
 
+import threading
+
 import cv2
 import numpy as np
+import pytest
 
 from skewfix.buffers import PlanePool
 from skewfix.decode import VideoInfo
@@ -148,3 +151,20 @@ def test_render_reuses_plane_buffers(clip_factory, tmp_path, monkeypatch):
     a, b = decode_rgb(tmp_path / "reused.mkv"), decode_rgb(tmp_path / "fresh.mkv")
     assert len(a) == len(b) == 48
     assert all(np.array_equal(x, y) for x, y in zip(a, b))  # FFV1 is lossless (IETF RFC 9043)
+
+
+def test_an_output_that_fails_late_leaves_no_thread_and_no_file(clip_factory, tmp_path):
+    """The output opens with the first picture, after the threads have started: when it
+    cannot be opened the error still comes alone, every thread of ours has ended (one left
+    inside OpenCV at exit can abort the interpreter) and nothing is written."""
+    from skewfix.errors import UsageProblem
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    src, _renderer, _clock = clip_factory("whip", readout=0.02, n_frames=24)
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    with pytest.raises(UsageProblem, match="cannot hold"):
+        fix_clip(str(src), str(out_dir / "plate.webm"), FixOptions(readout=0.02, codec="prores"))
+    alive = [t.name for t in threading.enumerate() if t.name.startswith("skewfix-") and t.is_alive()]
+    assert alive == []
+    assert list(out_dir.iterdir()) == []
