@@ -12,9 +12,13 @@ one four times longer, and the time of `skewfix measure --method flicker`.
 
     python scripts/bench_speed.py [--quick] [--repeats N] [--profile]
     python scripts/bench_speed.py --costs
+    python scripts/bench_speed.py --against REV [--repeats N]
 
 ``--costs`` instead times each stage alone on one thread at 1080p and prints
 the ratio those costs allow at best (every core busy in both jobs).
+``--against REV`` runs this tree's fix and a git revision's side by side with
+the plain transcode (mean of N alternating rounds): the fair way to see what a
+change did on a noisy machine.
 
 Times are the smallest of the repeats (the least disturbed run); only ratios
 measured in the same run are comparable. ``--profile`` adds a cProfile of one
@@ -154,6 +158,12 @@ def peak_rss_mb() -> float:
 def child_main(job: str, *rest: str) -> None:
     """One measured job in this (fresh) process; prints a JSON report as the last line."""
     start, cpu_start = time.perf_counter(), time.process_time()
+    expected_tree = os.environ.get("SKEWFIX_BENCH_TREE")
+    if expected_tree and job != "plain":  # --against: make sure the other revision's code is the one running
+        import skewfix
+
+        if not Path(skewfix.__file__).resolve().is_relative_to(Path(expected_tree).resolve()):
+            raise SystemExit(f"skewfix came from {skewfix.__file__}, not from {expected_tree}")
     if job == "plain":
         report = {"frames": plain_transcode(rest[0], rest[1], rest[2])}
     elif job == "fix":
@@ -168,11 +178,17 @@ def child_main(job: str, *rest: str) -> None:
     print("\n" + json.dumps(report))
 
 
-def run_child(args: list[str]) -> tuple[dict, float]:
-    """Run a child job; returns (its JSON report, wall seconds of the whole process)."""
+def run_child(args: list[str], tree: Path | None = None) -> tuple[dict, float]:
+    """Run a child job; returns (its JSON report, wall seconds of the whole process).
+
+    ``tree``: a checkout whose skewfix the child imports instead of this one's.
+    """
+    env = None
+    if tree is not None:
+        env = dict(os.environ, PYTHONPATH=str(tree), SKEWFIX_BENCH_TREE=str(tree))
     with tempfile.TemporaryFile() as err:
         start = time.perf_counter()
-        proc = subprocess.run(args, stdout=subprocess.PIPE, stderr=err)
+        proc = subprocess.run(args, stdout=subprocess.PIPE, stderr=err, env=env)
         wall = time.perf_counter() - start
         err.seek(0)
         lines = err.read().decode(errors="replace").strip().splitlines() or ["(no message)"]
@@ -391,6 +407,37 @@ def profile_fix(spec: ClipSpec, work: Path, top: int = 12) -> None:
         print(f"    {100 * own / wall:5.1f}%  {own:6.2f} s  {calls:6d} calls  {where}")
 
 
+# -- this tree against another revision ------------------------------------------------
+
+def against(rev: str, specs: list[ClipSpec], rounds: int, work: Path) -> None:
+    """Plain, fix from this tree and fix from ``rev``, alternating in one run; one table."""
+    repo = Path(__file__).resolve().parent.parent
+    other = work / "other"
+    subprocess.run(["git", "-C", str(repo), "worktree", "add", "--detach", "--quiet", str(other), rev], check=True)
+    try:
+        print(f"this tree against {rev}, {rounds} alternating rounds, every run a fresh process "
+              "(wall and CPU in seconds)")
+        head = f"{'clip':34} {'job':10} {'mean wall':>9} {'min wall':>8} {'mean CPU':>8} {'/plain':>7} {'/' + rev[:8]:>9}"
+        print(head)
+        print("-" * len(head))
+        for spec in specs:
+            spec.render()
+            runs: dict[str, list[dict]] = {"plain": [], "this tree": [], rev[:10]: []}
+            for _ in range(rounds):
+                runs["plain"].append(run_child(job_args("plain", spec, work / f"p{spec.file.suffix}"))[0])
+                runs["this tree"].append(run_child(job_args("fix", spec, work / f"a{spec.file.suffix}"))[0])
+                runs[rev[:10]].append(run_child(job_args("fix", spec, work / f"b{spec.file.suffix}"), other)[0])
+            mean = {k: sum(r["seconds"] for r in v) / len(v) for k, v in runs.items()}
+            for job, reports in runs.items():
+                cpu = sum(r["cpu_s"] for r in reports) / len(reports)
+                best = min(r["seconds"] for r in reports)
+                versus = "" if job == "plain" else f"{mean[job] / mean[rev[:10]]:8.2f}x"
+                print(f"{spec.label:34} {job:10} {mean[job]:9.2f} {best:8.2f} {cpu:8.2f} "
+                      f"{mean[job] / mean['plain']:6.2f}x {versus:>9}")
+    finally:
+        subprocess.run(["git", "-C", str(repo), "worktree", "remove", "--force", str(other)], check=False)
+
+
 # -- cost of each stage on one core ------------------------------------------------------
 
 def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
@@ -489,6 +536,9 @@ def main(argv=None):
     ap.add_argument("--quick", action="store_true", help="shorter clips and one repeat (a smoke run)")
     ap.add_argument("--repeats", type=int, default=None, help="alternating runs of each job (default 2, quick 1)")
     ap.add_argument("--profile", action="store_true", help="also profile one 1080p fix")
+    ap.add_argument("--against", metavar="REV",
+                    help="only this tree's fix against REV's (a git revision), alternating with the plain "
+                         "transcode in one run, on the 1080p clip and the one four times longer")
     ap.add_argument("--costs", action="store_true",
                     help="only the CPU cost of each stage on one thread at 1080p, and the floor it implies")
     argv = sys.argv[1:] if argv is None else list(argv)
@@ -500,6 +550,10 @@ def main(argv=None):
     specs = clip_specs(args.quick)
     if args.costs:
         stage_costs(specs["1080"])
+        return 0
+    if args.against:
+        with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
+            against(args.against, [specs["1080"], specs["1080long"]], args.repeats or 4, Path(tmp))
         return 0
     with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
         work = Path(tmp)
