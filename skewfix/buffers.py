@@ -1,11 +1,14 @@
 """Reusable full-size plane buffers for the render loop.
 
-Every frame needs fresh full-size arrays: the decoded planes and the
-remapped ones. Allocating them anew costs page faults (the kernel zeroes
-every page of a new block, about a tenth of fix's CPU at 1080p), so the
-render loop takes them from a `PlanePool` and gives them back once the frame
-is encoded. The pool keeps at most ``limit`` spare buffers of each shape, so
-it never holds more than the look-ahead already needed at its peak.
+Every frame needs full-size arrays: the decoded planes, the maps and the
+remapped planes. Allocated anew, each block is fresh memory that the kernel
+must fault in and zero (in perf, page zeroing was 8-12 % of fix's CPU
+samples at 1080p, most of it the encoder's own). The render loop instead
+takes them from a `PlanePool` and gives them back once the frame is encoded,
+which keeps the resident set steady; the CPU saved was within the noise of
+the benchmark (DEVELOPERS.md). The pool keeps at most ``limit`` spare
+buffers of each shape, so it never holds more than the look-ahead already
+needed at its peak.
 """
 
 from __future__ import annotations
