@@ -2,8 +2,8 @@
 
 Every frame needs full-size arrays: the decoded planes, the maps and the
 remapped planes. Allocated anew, each block is fresh memory that the kernel
-must fault in and zero (in perf, page zeroing was 8-12 % of fix's CPU
-samples at 1080p, most of it the encoder's own). The render loop instead
+must fault in and zero (in perf, page zeroing was about 8 % of fix's CPU
+samples at 1080p, most of it inside the encoder). The render loop instead
 takes them from a `PlanePool` and gives them back once the frame is encoded,
 which keeps the resident set steady; the CPU saved was within the noise of
 the benchmark (DEVELOPERS.md). The pool keeps at most ``limit`` spare
