@@ -206,8 +206,9 @@ class VideoSource:
         self.lost_frames = 0
         self.decode_errors: list[str] = []
         # demux() may run on another thread: close() waits for the FFmpeg call in
-        # flight, so a Ctrl-C on the main thread never frees the demuxer under it
-        self._io_lock = threading.Lock()
+        # flight, so a Ctrl-C on the main thread never frees the demuxer under it;
+        # another thread that reads the container (a sink copying its streams) takes it too
+        self.io_lock = threading.Lock()
         self._closed = False
         self.pool = None  # a PlanePool for the decoded planes (set by the render loop)
 
@@ -216,7 +217,7 @@ class VideoSource:
         return self._container
 
     def close(self) -> None:
-        with self._io_lock:
+        with self.io_lock:
             self._closed = True
             self._container.close()
 
@@ -225,19 +226,6 @@ class VideoSource:
 
     def __exit__(self, *exc):
         self.close()
-
-    def read_rotation(self) -> int:
-        """Display rotation (degrees) from the first frame's display matrix, without
-        disturbing this source (a second, short-lived demuxer reads one frame)."""
-        import av
-
-        try:
-            with av.open(self.path) as c:
-                for frame in c.decode(video=0):
-                    return int(getattr(frame, "rotation", 0) or 0) % 360
-        except Exception:
-            return self.info.rotation
-        return self.info.rotation
 
     def _convert(self, frame):
         if not _is_remappable(frame.format):
@@ -266,7 +254,7 @@ class VideoSource:
         losses = FrameLossCounter(self.info.frame_interval, self.info.frame_count, *self._end_time())
         packets = self._container.demux(*streams)
         while True:
-            with self._io_lock:
+            with self.io_lock:
                 if self._closed:
                     return
                 try:
@@ -282,7 +270,7 @@ class VideoSource:
                 continue
             if packet.size:
                 losses.packets += 1
-            with self._io_lock:
+            with self.io_lock:
                 if self._closed:
                     return
                 try:

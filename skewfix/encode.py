@@ -196,7 +196,7 @@ class VideoSink:
         return next(s.index for s in source.streams if s.type == "video")
 
     # -- writing ----------------------------------------------------------
-    def write_planes(self, planes, pts, src_fmt: str, time_base=None):
+    def write_planes(self, planes, pts, src_fmt: str):
         import av
 
         frame = self._frames_by_format.get(src_fmt)
@@ -291,8 +291,8 @@ class DeferredSink:
     def notes(self) -> list[str]:
         return list(self.sink.notes) if self.sink is not None else []
 
-    def write_planes(self, planes, pts, src_fmt: str, time_base=None):
-        self._open().write_planes(planes, pts, src_fmt, time_base)
+    def write_planes(self, planes, pts, src_fmt: str):
+        self._open().write_planes(planes, pts, src_fmt)
 
     def copy_packet(self, packet):
         if self.sink is None:

@@ -1,13 +1,14 @@
 """The correction job: decode -> proxy -> track -> fit -> maps -> remap planes -> encode.
 
-Two streaming passes over the input, neither holding the clip in memory:
+By default one streaming pass (`StreamingWarper`): a decoding thread tracks
+each frame's luma proxy, a fitting thread fits the motion in short windows,
+a warping thread remaps the planes once their window is fitted, and the
+calling thread encodes and muxes; small bounded queues join them (FFmpeg and
+OpenCV release the GIL, so the stages overlap) and no stage holds the clip.
 
-* **analysis** decodes each frame, reduces its luma to a proxy and tracks it
-  against the previous one, keeping only the tracks (a few kB per frame);
-* the motion is fitted for each shot with the row clock;
-* **render** decodes again on one thread, remaps the planes on a second and
-  encodes and muxes on the calling thread, joined by small bounded queues
-  (FFmpeg and OpenCV release the GIL, so the stages overlap).
+``--readout auto`` and ``--border crop`` need the whole clip's motion first:
+an **analysis** pass keeps only the tracks (a few kB per frame), the motion
+is fitted per shot, then the same render loop runs with a `FrameWarper`.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ import queue
 import threading
 import time
 from collections import deque
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Callable
@@ -650,11 +651,11 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     times = StageTimes()
     notes: list[str] = []
     settings = RenderSettings(options.reference_line, options.border, interpolation=options.interpolation)
+    readout, line_order, origin = options.readout, options.line_order, options.readout_origin
     whole_clip = readout_resolver is not None or options.border == "crop"
     if whole_clip:
         # --readout auto and --border crop need the whole clip's motion first: analyse, then render
         analysis = analyse(input_path, options.fps, options.tracker, progress, times)
-        readout, line_order, origin = options.readout, options.line_order, options.readout_origin
         if readout_resolver is not None:
             readout, line_order, origin = readout_resolver(analysis)
         clock, model = solve(analysis, readout, line_order, options.fit, times)
@@ -663,7 +664,6 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
         if warper.zoom > 1.0:
             notes.append(f"crop border: the picture is enlarged {warper.zoom:.3f}x to hide missing edges")
     else:
-        readout, line_order, origin = options.readout, options.line_order, options.readout_origin
         info = probe_info
         warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times)
         analysis = None
@@ -672,7 +672,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
 
     def open_output():
         # called with the first corrected picture: the first frame has told the rotation by then
-        with getattr(source, "_io_lock", threading.Lock()):  # the decoder thread may be demuxing
+        with getattr(source, "io_lock", None) or nullcontext():  # the decoder thread may be demuxing
             if sink_factory is not None:
                 return sink_factory(info, template)
             return VideoSink(output_path, info, codec=options.codec, crf=options.crf, preset=options.preset,

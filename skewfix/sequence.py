@@ -425,7 +425,7 @@ class ImageSequenceSink:
         self._staged = StagedSequence(self.pattern, first_number, force)
         self._frames = 0
 
-    def write_planes(self, planes, pts, src_fmt: str, time_base=None) -> None:
+    def write_planes(self, planes, pts, src_fmt: str) -> None:
         rgb = planes_to_rgb(planes, src_fmt, self.info, self.depth)
         self._staged.write(self._frames, cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
         self._frames += 1

@@ -41,7 +41,7 @@ class _RecordingSink:
     def copy_packet(self, packet):
         self.packets.append(packet)
 
-    def write_planes(self, planes, pts, src_fmt, time_base=None):
+    def write_planes(self, planes, pts, src_fmt):
         self.frames.append(pts)
 
     def finish(self):
