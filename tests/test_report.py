@@ -138,3 +138,24 @@ def test_preview_still_is_closer_to_the_truth_after(whip, tmp_path, capsys):
     assert code == 1 and "no frame 99" in err and not (tmp_path / "other.png").exists()
     code, err = run(capsys, "preview", path, "--readout", f"{READOUT_MS}ms", "--out", still)
     assert code == 2 and "--force" in err
+
+
+def test_crop_border_reports_the_skew_of_the_motion_not_of_the_enlargement(whip, tmp_path, monkeypatch):
+    """With --border crop the rendered maps also enlarge the picture; the report's skew per
+    frame must be the motion's alone, the same as without the crop (a crop is no skew)."""
+    from skewfix.cli.plates import FixDeliverables
+
+    seen = {}
+
+    def capture(self, result, skew):
+        seen[self.border] = np.array(skew)
+
+    monkeypatch.setattr(FixDeliverables, "_write_report", capture)
+    for border in ("edge", "crop"):
+        code = main(["fix", str(whip[0]), str(tmp_path / f"{border}.mp4"), "--readout", f"{READOUT_MS}ms",
+                     "--border", border, "--report", str(tmp_path / f"{border}.html"), "--quiet"])
+        assert code == 0
+    assert np.abs(seen["edge"]).max() > 1.0  # a whip pan: real skew to report
+    # the crop run fits the whole clip at once and the edge run in windows, so the two fits
+    # differ by a few hundredths of a pixel; an enlargement counted as skew would add pixels
+    assert np.allclose(seen["crop"], seen["edge"], atol=0.25)

@@ -199,8 +199,12 @@ class FixDeliverables:
                 matte = outside_matte(map_x, map_y).astype(np.uint8) * 255
                 self._matte.write(k, matte)
         if self.report is not None:
-            self._skew[k] = map_skew(wm)
-            size = float(np.sum(np.abs(self._skew[k])))
+            # the render's map includes a crop's enlargement, which is no skew: with
+            # --border crop the report reads the skew from the motion instead (finish)
+            skew = map_skew(wm)
+            if self.border != "crop":
+                self._skew[k] = skew
+            size = float(np.sum(np.abs(skew)))  # picks the still (a crop's part is the same every frame)
             if size > self._still[0]:
                 self._still = (size, k, [np.array(p) for p in planes])
 
