@@ -87,15 +87,13 @@ CSV_COLUMNS = ("frame", "time_s", "reference_time_s", "pan_x_px", "pan_y_px", "r
 
 
 def check_new_file(path: str | os.PathLike, force: bool, option: str) -> None:
-    """Refuse an output file that exists (without --force) or whose folder is missing."""
-    p = Path(path)
-    if p.is_dir():
-        raise UsageProblem(f"{option} {path}: is a folder; give a file name")
-    if p.exists() and not force:
+    """Refuse an output file that is a folder, exists (without --force), or whose folder is
+    missing or not writable: all before any work is done."""
+    from skewfix.encode import check_writable_file_path
+
+    check_writable_file_path(path, option)
+    if Path(path).exists() and not force:
         raise UsageProblem(f"{option} {path}: already exists (add --force to replace it)")
-    parent = p.parent if str(p.parent) else Path(".")
-    if not parent.is_dir():
-        raise UsageProblem(f"{option} {path}: folder {parent} does not exist")
 
 
 # --------------------------------------------------------------------------
