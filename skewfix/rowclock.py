@@ -52,6 +52,36 @@ def parse_duration(text: str) -> float:
     return seconds
 
 
+_NTSC_FACTOR = Fraction(1000, 1001)
+_NTSC_SNAP = 2e-4  # a decimal this close (relative) to n * 1000/1001 means that rate
+
+
+def parse_rate(text: str | None) -> Fraction | None:
+    """``25``, ``23.976``, ``24000/1001`` -> an exact Fraction.
+
+    A decimal within 0.02 % of an NTSC-family rate ``n * 1000/1001`` (23.976,
+    29.97, 59.94, and 23.98 as often written) is that rate exactly; other
+    decimals are taken as written.
+    """
+    if text is None:
+        return None
+    text = str(text).strip()
+    try:
+        if "/" in text:
+            num, den = text.split("/", 1)
+            rate = Fraction(int(num), int(den))
+        else:
+            rate = Fraction(text)
+            ntsc = round(rate / _NTSC_FACTOR) * _NTSC_FACTOR
+            if rate.denominator != 1 and ntsc and abs(rate - ntsc) <= _NTSC_SNAP * ntsc:
+                rate = ntsc
+    except (ValueError, ZeroDivisionError):
+        raise UsageProblem(f"not a frame rate: {text!r} (use e.g. 25, 23.976 or 24000/1001)") from None
+    if rate <= 0:
+        raise UsageProblem(f"frame rate must be positive: {text!r}")
+    return rate
+
+
 def frame_times_from_rate(n_frames: int, rate: Fraction, start: Fraction = Fraction(0)) -> np.ndarray:
     """Exact frame start times ``start + k / rate`` (computed in rationals)."""
     rate = Fraction(rate)

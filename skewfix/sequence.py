@@ -46,7 +46,7 @@ import numpy as np
 
 from skewfix.decode import DecodedFrame, VideoInfo
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.rowclock import frame_times_from_rate
+from skewfix.rowclock import frame_times_from_rate, parse_rate
 
 IMAGE_EXTENSIONS = (".png", ".tif", ".tiff")
 FLOAT_EXTENSIONS = (".exr",)
@@ -171,7 +171,7 @@ def read_image_rgb(path: Path) -> np.ndarray:
 
 
 def _as_rate(fps) -> Fraction:
-    rate = Fraction(fps) if isinstance(fps, (int, Fraction)) else Fraction(str(fps)).limit_denominator(1001)
+    rate = Fraction(fps) if isinstance(fps, (int, Fraction)) else parse_rate(str(fps))
     if rate <= 0:
         raise UsageProblem(f"frame rate must be positive, not {fps}")
     return rate

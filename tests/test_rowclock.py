@@ -81,3 +81,16 @@ def test_row_times_are_monotonic_in_read_order(height, readout, order):
     else:
         assert np.all(d <= 0)
     assert t.max() - t.min() == pytest.approx(readout * (height - 1) / height, abs=1e-12)
+
+
+@pytest.mark.parametrize("text, rate", [
+    # NTSC-family rates are n * 1000/1001 (SMPTE ST 12-1, from memory); editors write them as decimals
+    ("23.976", Fraction(24000, 1001)), ("23.98", Fraction(24000, 1001)), ("29.97", Fraction(30000, 1001)),
+    ("59.94", Fraction(60000, 1001)), ("24000/1001", Fraction(24000, 1001)),
+    # plain rates stay as written
+    ("25", Fraction(25)), ("12.5", Fraction(25, 2)), ("24", Fraction(24)), ("30", Fraction(30)),
+])
+def test_frame_rates_as_editors_write_them(text, rate):
+    from skewfix.rowclock import parse_rate
+
+    assert parse_rate(text) == rate

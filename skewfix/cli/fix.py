@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import re
-from fractions import Fraction
 from typing import Optional
 
 import typer
@@ -11,27 +10,10 @@ import typer
 from skewfix.cli import app
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import UsageProblem
-from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_duration
+from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_duration, parse_rate
 from skewfix.warp import BORDERS
 
 _NAME = re.compile(r"^[A-Za-z][\w.\-]*$")
-
-
-def parse_rate(text: str | None) -> Fraction | None:
-    """``25``, ``23.976``, ``24000/1001`` -> an exact Fraction (23.976 -> 24000/1001)."""
-    if text is None:
-        return None
-    try:
-        if "/" in text:
-            num, den = text.split("/", 1)
-            rate = Fraction(int(num), int(den))
-        else:
-            rate = Fraction(text).limit_denominator(1001)
-    except (ValueError, ZeroDivisionError):
-        raise UsageProblem(f"not a frame rate: {text!r} (use e.g. 25, 23.976 or 24000/1001)") from None
-    if rate <= 0:
-        raise UsageProblem(f"frame rate must be positive: {text!r}")
-    return rate
 
 
 def choice(value: str, allowed, option: str) -> str:

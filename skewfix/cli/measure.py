@@ -13,11 +13,11 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.fix import choice, parse_rate
+from skewfix.cli.fix import choice
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
-from skewfix.rowclock import parse_duration
+from skewfix.rowclock import parse_duration, parse_rate
 
 METHODS = ("auto", "flicker", "pan", "motion")
 

@@ -289,7 +289,8 @@ def reskew_command(
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
     """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
-    from skewfix.cli.fix import choice, parse_rate
+    from skewfix.cli.fix import choice
+    from skewfix.rowclock import parse_rate
     from skewfix.decode import open_source
     from skewfix.encode import CODECS, DeferredSink, check_output_path
     from skewfix.motionfile import load_motion
@@ -359,7 +360,8 @@ def preview_command(
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
     """Write a before/after still of one frame, with straight reference lines over both halves."""
-    from skewfix.cli.fix import choice, parse_rate, readout_plan
+    from skewfix.cli.fix import choice, readout_plan
+    from skewfix.rowclock import parse_rate
     from skewfix.files import write_whole
     from skewfix.motionfile import check_new_file
     from skewfix.pipeline import FrameWarper, RenderSettings, analyse, solve
