@@ -52,6 +52,7 @@ from pathlib import Path
 from typing import Callable, Iterable, Iterator
 
 from skewfix.errors import InputError, RuntimeProblem, SkewfixError, UsageProblem
+from skewfix.sequence import is_pattern
 
 VIDEO_SUFFIXES = frozenset({
     ".mov", ".mp4", ".m4v", ".mkv", ".mxf", ".avi", ".mts", ".m2ts", ".ts", ".webm", ".mpg", ".mpeg",
@@ -174,7 +175,7 @@ def read_clip_list(path: Path, out_dir: Path) -> list[ClipJob]:
         if not paths:
             raise UsageProblem(f"{where}: no INPUT before the settings")
         source = paths[0]
-        if "%" in Path(source).name or "#" in Path(source).name:
+        if is_pattern(source):
             raise UsageProblem(f"{where}: image sequences are not handled by batch yet; use 'skewfix fix' for {source}")
         input_path = os.path.abspath(base / Path(source).expanduser())
         output = _output_for(input_path, paths[1] if len(paths) > 1 else None, out_dir)

@@ -411,9 +411,9 @@ def _short(exc: Exception) -> str:
 
 def open_source(path: str | os.PathLike, fps: Fraction | None = None):
     """Open a clip or a numbered image sequence (``name.%04d.ext``)."""
-    text = str(path)
-    if "%" in Path(text).name or "#" in Path(text).name:
-        from skewfix.sequence import ImageSequenceSource
+    from skewfix.sequence import ImageSequenceSource, is_pattern
 
+    text = str(path)
+    if is_pattern(text):
         return ImageSequenceSource(text, fps)
     return VideoSource(text)

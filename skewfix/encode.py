@@ -323,8 +323,10 @@ def fill_frame(frame, planes) -> None:
 
 def check_output_path(input_path: str, output: str, force: bool) -> None:
     """Refuse OUTPUT == INPUT (also via links or other spellings) and existing OUTPUT without --force."""
+    from skewfix.sequence import is_pattern
+
     out = Path(output)
-    if "%" not in out.name:
+    if not is_pattern(out):  # a sequence's files are checked by check_sequence_output
         try:
             same = Path(input_path).exists() and out.exists() and os.path.samefile(input_path, out)
         except OSError:

@@ -57,10 +57,17 @@ _PRINTF_FIELD = re.compile(r"%(0?)(\d*)d")
 _HASH_FIELD = re.compile(r"#+")
 
 
+# clip containers: a ``#`` in such a name is part of the name (take#2.mp4), not a frame number
+_CLIP_EXTENSIONS = (".mp4", ".mov", ".m4v", ".mkv", ".webm", ".avi", ".mxf", ".mts", ".m2ts", ".ts")
+
+
 def is_pattern(path: str | os.PathLike) -> bool:
-    """True when ``path`` names a numbered sequence (``%04d`` or ``####`` in the file name)."""
+    """True when ``path`` names a numbered sequence: a ``%04d`` field, or ``####`` in a file
+    name that is not a clip's (``take#2.mp4`` is a clip)."""
     name = Path(str(path)).name
-    return "%" in name or "#" in name
+    if "%" in name:
+        return True
+    return "#" in name and Path(name).suffix.lower() not in _CLIP_EXTENSIONS
 
 
 @dataclass(frozen=True)

@@ -222,3 +222,19 @@ def test_existing_sequence_needs_force_and_is_replaced_whole(tmp_path, capsys):
     code, err = run(capsys, "fix", tmp_path / "p.%04d.png", tmp_path / "p.%04d.png", "--readout", "0",
                     "--fps", "25", "--force")
     assert code == 2 and "same sequence as INPUT" in err
+
+
+def test_a_clip_with_a_hash_in_its_name_is_a_clip(clip_factory, tmp_path):
+    """Take numbers like ``take#2`` are common in clip names (common practice); only a
+    ``%04d`` field, or ``####`` in an image file's name, makes a numbered sequence."""
+    import shutil
+
+    from skewfix.pipeline import FixOptions, fix_clip
+    from skewfix.sequence import is_pattern
+
+    src, _renderer, _clock = clip_factory("steady", readout=0.02)
+    take = tmp_path / "take#2.mp4"
+    shutil.copy(src, take)
+    assert not is_pattern(take) and is_pattern("plate.####.tif") and is_pattern("plate.%04d.png")
+    result = fix_clip(str(take), str(tmp_path / "take#2_fixed.mp4"), FixOptions(readout=0.02))
+    assert result.frames_written == 16 and (tmp_path / "take#2_fixed.mp4").exists()
