@@ -727,10 +727,7 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     over the candidate readouts, the result marked. Bottom: the band phase of
     each frame against time with what each line order predicts.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    from skewfix.measure.plots import new_figure, save_png
 
     d = estimate.diagnostics
     if not d or "band_measured" not in d:
@@ -739,7 +736,7 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     meas = d["band_measured"]
     model = d["band_model"]
     n = meas.shape[0]
-    fig, axes = plt.subplots(3, 1, figsize=(10, 10), constrained_layout=True)
+    fig, axes = new_figure(3, (10, 10))
 
     ax = axes[0]
     picks = np.unique(np.linspace(0, n - 1, min(n, 4)).round().astype(int))
@@ -791,5 +788,4 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     fig.suptitle(f"flicker ({f:g} Hz): readout {estimate.readout_s * 1e3:.3f} ± "
                  f"{estimate.uncertainty_s * 1e3:.3f} ms, {estimate.line_order}, "
                  f"{len(estimate.frames_used)} frames", fontsize=13)
-    fig.savefig(str(path), dpi=100)
-    plt.close(fig)
+    save_png(fig, path)

@@ -425,17 +425,12 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
 def plot_pan(estimate: ReadoutEstimate, path) -> None:
     """PNG to check a pan measurement by eye: lean against speed with the fitted line,
     and the misfit against candidate readouts with the minimum marked."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    from skewfix.measure.plots import draw_residual_curve
+    from skewfix.measure.plots import draw_residual_curve, new_figure, save_png
 
     d = estimate.diagnostics
     if not d or "speeds_px_s" not in d:
         raise ValueError("the estimate has no pan diagnostics to plot")
-    fig, axes = plt.subplots(2, 1, figsize=(9, 8), constrained_layout=True)
+    fig, axes = new_figure(2, (9, 8))
     ax = axes[0]
     u = np.asarray(d["speeds_px_s"])
     s = np.asarray(d["slants_px_per_row"])
@@ -452,5 +447,4 @@ def plot_pan(estimate: ReadoutEstimate, path) -> None:
     draw_residual_curve(axes[1], estimate)
     fig.suptitle(f"pan: readout {estimate.readout_s * 1e3:.3f} ± {estimate.uncertainty_s * 1e3:.3f} ms, "
                  f"{estimate.line_order}, {len(estimate.frames_used)} frames", fontsize=12)
-    fig.savefig(str(path), dpi=100, format="png")
-    plt.close(fig)
+    save_png(fig, path)

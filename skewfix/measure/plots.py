@@ -13,6 +13,23 @@ import numpy as np
 from skewfix.measure.result import ReadoutEstimate
 
 
+def new_figure(rows: int, figsize: tuple[float, float]):
+    """A figure with ``rows`` stacked axes, drawn off screen.
+
+    Built without pyplot, so the caller's matplotlib backend (a notebook's,
+    say) is left alone.
+    """
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=figsize, constrained_layout=True)
+    return fig, fig.subplots(rows, 1)
+
+
+def save_png(fig, path) -> None:
+    """Every measurement plot is a PNG, whatever the file is called."""
+    fig.savefig(str(path), dpi=100, format="png")
+
+
 def draw_residual_curve(ax, estimate: ReadoutEstimate) -> None:
     """Misfit against candidate readout on a matplotlib axis, minimum and result marked."""
     d = estimate.diagnostics or {}
@@ -36,15 +53,9 @@ def draw_residual_curve(ax, estimate: ReadoutEstimate) -> None:
 
 def plot_residual_curve(estimate: ReadoutEstimate, path) -> None:
     """Write a PNG of the misfit against candidate readout (pan, motion)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(9, 4.5), constrained_layout=True)
+    fig, ax = new_figure(1, (9, 4.5))
     draw_residual_curve(ax, estimate)
     ax.set_title(f"{estimate.method}: readout {estimate.readout_s * 1e3:.3f} ± "
                  f"{estimate.uncertainty_s * 1e3:.3f} ms, {estimate.line_order}, "
                  f"{len(estimate.frames_used)} frames")
-    fig.savefig(str(path), dpi=100, format="png")
-    plt.close(fig)
+    save_png(fig, path)
