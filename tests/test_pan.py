@@ -192,11 +192,19 @@ def test_frames_while_speeding_up_are_left_out(pan_clip):
     assert used.min() >= first_steady - 1
 
 
-def test_analysis_is_reused(pan_clip):
+def test_analysis_is_reused(pan_clip, monkeypatch):
+    import skewfix.pipeline
     from skewfix.pipeline import analyse
 
     path = pan_clip([900.0], 0.020)[0]
-    assert measure_pan(path, analyse(path)).readout_s == pytest.approx(measured(path).readout_s, rel=1e-9)
+    given = analyse(path)
+    expected = measured(path).readout_s
+
+    def no_second_analysis(*args, **kwargs):
+        raise AssertionError("measure_pan analysed the clip again")
+
+    monkeypatch.setattr(skewfix.pipeline, "analyse", no_second_analysis)
+    assert measure_pan(path, given).readout_s == pytest.approx(expected, rel=1e-9)
 
 
 def test_refuses_a_clip_without_a_steady_pan(pan_clip):

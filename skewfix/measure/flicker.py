@@ -216,6 +216,7 @@ def _estimate_shifts(q, max_shift):
     core = slice(m, h - m)
     y = np.arange(h, dtype=float)
     shifts = np.zeros(n)
+    lags = np.arange(-int(max_shift), int(max_shift) + 1)  # whole rows: |lag| < m, so plain slices
     for _ in range(3):
         aligned = np.empty_like(hp)
         for k in range(n):
@@ -226,8 +227,7 @@ def _estimate_shifts(q, max_shift):
         new = np.zeros(n)
         for k in range(n):
             target = hp[k, core]
-            lags = np.arange(-int(max_shift), int(max_shift) + 1)
-            costs = [np.sum((target - np.interp(y[core] - L, y, ref)) ** 2) for L in lags]
+            costs = [np.sum((target - ref[m - L:h - m - L]) ** 2) for L in lags]
             l0 = lags[int(np.argmin(costs))]
             res = minimize_scalar(
                 lambda s_: float(np.sum((target - spline(y[core] - s_)) ** 2)),
