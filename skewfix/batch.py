@@ -109,7 +109,7 @@ def check_setting(name: str, value: str, where: str) -> str:
     if name == "preset" and not value.isalnum():
         raise UsageProblem(f"{where}: preset must be one word such as veryfast or medium, not {value!r}")
     if name == "readout":
-        from skewfix.cli.fix import readout_plan
+        from skewfix.cameras import readout_plan
 
         try:
             readout_plan(value, None)
@@ -277,7 +277,7 @@ def run_clip(job: ClipJob, replace: bool = False) -> ClipOutcome:
     """Correct one clip; every problem becomes a failed outcome with a one-line message."""
     start = time.perf_counter()
     try:
-        from skewfix.cli.fix import readout_plan
+        from skewfix.cameras import readout_plan
         from skewfix.pipeline import FixOptions, fix_clip
 
         s = job.settings

@@ -54,11 +54,13 @@ from pathlib import Path
 
 from skewfix.errors import InputError, UsageProblem
 from skewfix.files import write_whole
+from skewfix.rowclock import parse_duration
 
 HEADER = "skewfix camera v1"
 SUFFIX = ".camera"
 ORDERS = ("top-down", "bottom-up", "undetermined")
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9._-]{0,63}$")
+_LOOKS_LIKE_NAME = re.compile(r"^[A-Za-z][\w.\-]*$")  # not a duration: a camera name, good or bad
 _KEY = re.compile(r"^([a-z][a-z0-9_]*)\s*:\s?(.*)$")
 _RESERVED = {"auto"}
 # Frame rates closer than this count as the same mode (29.97 and 30 are one
@@ -286,10 +288,11 @@ def _read(path: Path, name: str) -> SavedCamera:
 
 def load_camera(name: str) -> SavedCamera:
     """The saved camera NAME; UsageProblem if there is none, InputError if its file is broken."""
+    name = check_name(name)
     path = camera_path(name)
     if not path.is_file():
         raise UsageProblem(f"no saved camera called {name!r} (skewfix cameras list shows saved ones)")
-    return _read(path, check_name(name))
+    return _read(path, name)
 
 
 def list_cameras(problems: list | None = None) -> list[SavedCamera]:
@@ -376,3 +379,21 @@ def camera_resolver(name: str, line_order: str | None):
         return camera.readout_s, order, text
 
     return camera.readout_s, order, origin, resolver
+
+
+def readout_plan(text: str, line_order: str | None):
+    """Turn ``--readout`` into (seconds or None, line order, origin, resolver or None).
+
+    Accepts a duration, ``auto`` (measured from the clip's own motion) or the
+    name of a saved camera.
+    """
+    if text.strip().lower() == "auto":
+        from skewfix.measure.selfcal import auto_readout_resolver
+
+        return None, line_order or "top-down", "measured from this clip's motion", auto_readout_resolver(line_order)
+    try:
+        return parse_duration(text), line_order or "top-down", "given on the command line", None
+    except UsageProblem:
+        if not _LOOKS_LIKE_NAME.match(text.strip()):  # a mistyped duration: say so
+            raise
+    return camera_resolver(text.strip(), line_order)

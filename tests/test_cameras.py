@@ -174,7 +174,7 @@ def test_line_order_from_the_command_line_wins():
 
 
 def test_fix_readout_plan_routes_names_to_saved_cameras():
-    from skewfix.cli.fix import readout_plan
+    from skewfix.cameras import readout_plan
 
     save_camera("rig-b", estimate(0.0123), video_info())
     seconds, order, origin, resolver = readout_plan("rig-b", None)

@@ -23,18 +23,13 @@ app = typer.Typer(
     help="Measure and remove rolling-shutter skew in footage.",
 )
 
-_STATE = {"debug": False}
 INTERRUPTED = 130  # the shell's status for a run stopped by SIGINT (128 + 2; common practice)
 
 
 @app.callback()
 def _root(debug: bool = typer.Option(False, "--debug", help="Show full tracebacks on errors.")):
     """Measure and remove rolling-shutter skew in footage."""
-    _STATE["debug"] = debug or os.environ.get("SKEWFIX_DEBUG") == "1"
-
-
-def debug_enabled() -> bool:
-    return _STATE["debug"] or os.environ.get("SKEWFIX_DEBUG") == "1"
+    # the option is read by `main` from the arguments, before any command runs
 
 
 def fail(message: str, code: int = 1) -> None:

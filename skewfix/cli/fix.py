@@ -2,44 +2,21 @@
 
 from __future__ import annotations
 
-import re
 from typing import Optional
 
 import typer
 
+from skewfix.cameras import readout_plan
 from skewfix.cli import app
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import UsageProblem
-from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_duration, parse_rate
+from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
-
-_NAME = re.compile(r"^[A-Za-z][\w.\-]*$")
-
 
 def choice(value: str, allowed, option: str) -> str:
     if value not in allowed:
         raise UsageProblem(f"{option} must be one of {', '.join(allowed)}, not {value!r}")
     return value
-
-
-def readout_plan(text: str, line_order: str | None):
-    """Turn ``--readout`` into (seconds or None, line order, origin, resolver or None).
-
-    Accepts a duration, ``auto`` (measured from the clip's own motion) or the
-    name of a saved camera.
-    """
-    if text.strip().lower() == "auto":
-        from skewfix.measure.selfcal import auto_readout_resolver
-
-        return None, line_order or "top-down", "measured from this clip's motion", auto_readout_resolver(line_order)
-    try:
-        return parse_duration(text), line_order or "top-down", "given on the command line", None
-    except UsageProblem:
-        if not _NAME.match(text.strip()):
-            raise
-    from skewfix.cameras import camera_resolver
-
-    return camera_resolver(text.strip(), line_order)
 
 
 @app.command("fix")

@@ -360,7 +360,8 @@ def preview_command(
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
     """Write a before/after still of one frame, with straight reference lines over both halves."""
-    from skewfix.cli.fix import choice, readout_plan
+    from skewfix.cameras import readout_plan
+    from skewfix.cli.fix import choice
     from skewfix.rowclock import parse_rate
     from skewfix.files import write_whole
     from skewfix.motionfile import check_new_file
