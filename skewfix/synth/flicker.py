@@ -36,11 +36,12 @@ from pathlib import Path
 
 import numpy as np
 
+from skewfix.rowclock import RowClock, frame_times_from_rate
+
 __all__ = [
     "FlickerTruth",
     "light_mean",
     "render_flicker_clip",
-    "row_start_times",
 ]
 
 WAVEFORMS = ("sine", "square", "ac")
@@ -74,17 +75,6 @@ class FlickerTruth:
         if self.readout_s <= 0:
             return float("inf")
         return self.height / (self.light_hz * self.readout_s)
-
-
-def row_start_times(frame_times, height: int, readout_s: float, line_order: str = "top-down"):
-    """Exposure start time of every row: array (n_frames, height), seconds."""
-    t = np.asarray(frame_times, dtype=np.float64)[:, None]
-    y = np.arange(height, dtype=np.float64)[None, :]
-    if line_order == "top-down":
-        return t + readout_s * y / height
-    if line_order == "bottom-up":
-        return t + readout_s * (height - 1 - y) / height
-    raise ValueError(f"line_order must be 'top-down' or 'bottom-up', not {line_order!r}")
 
 
 def _antiderivative(t, light_hz, waveform, depth, duty, phase):
@@ -237,10 +227,11 @@ def render_flicker_clip(
         raise ValueError("depth must be between 0 and 1")
 
     rng = np.random.default_rng(seed)
-    frame_times = np.array([float(Fraction(k) / fps) for k in range(n_frames)])
+    frame_times = frame_times_from_rate(n_frames, Fraction(fps))
 
     # ---- per-row light, exactly integrated over each row's exposure ----------
-    starts = row_start_times(frame_times, height, readout_s, line_order)
+    clock = RowClock(frame_times, height, readout_s, line_order)
+    starts = clock.row_time(np.arange(n_frames)[:, None], np.arange(height, dtype=np.float64)[None, :])
     light = light_mean(starts, exposure_s, light_hz, waveform, depth, duty, phase)
     light = light.astype(np.float32)  # (n_frames, height)
 
