@@ -82,6 +82,15 @@ def parse_rate(text: str | None) -> Fraction | None:
     return rate
 
 
+def clip_frame_interval(nominal: float | None, frame_times) -> float | None:
+    """The clip's frame interval in seconds: the one its stated rate gives, else the
+    median step of its timestamps (variable-rate phone footage); None for one frame."""
+    if nominal:
+        return float(nominal)
+    times = np.asarray(frame_times, dtype=np.float64)
+    return float(np.median(np.diff(times))) if times.size > 1 else None
+
+
 def frame_times_from_rate(n_frames: int, rate: Fraction, start: Fraction = Fraction(0)) -> np.ndarray:
     """Exact frame start times ``start + k / rate`` (computed in rationals)."""
     rate = Fraction(rate)

@@ -17,7 +17,7 @@ from skewfix.cli.fix import choice
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
-from skewfix.rowclock import parse_duration, parse_rate
+from skewfix.rowclock import clip_frame_interval, parse_duration, parse_rate
 
 METHODS = ("auto", "flicker", "pan", "motion")
 
@@ -124,7 +124,7 @@ def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):
 
         raise InputError(f"{clip}: no frame could be decoded")
     times = np.asarray(times)
-    interval = info.frame_interval or (float(np.median(np.diff(times))) if len(times) > 1 else None)
+    interval = clip_frame_interval(info.frame_interval, times)
     if not interval:
         raise UsageProblem(f"{clip}: the frame rate is not known (give --fps)")
     try:

@@ -33,6 +33,7 @@ import numpy as np
 
 from skewfix.errors import InputError, MeasurementRefused
 from skewfix.measure.result import ReadoutEstimate
+from skewfix.rowclock import clip_frame_interval
 
 __all__ = ["measure_pan", "plot_pan", "profile_shift", "frame_slant", "pair_speeds"]
 
@@ -304,7 +305,7 @@ def _speed_band_shifts(path: str, analysis, fps):
 
 def _no_pan_message(speeds, analysis) -> str:
     finite = speeds[np.isfinite(speeds)]
-    interval = analysis.info.frame_interval or float(np.median(np.diff(analysis.frame_times)))
+    interval = clip_frame_interval(analysis.info.frame_interval, analysis.frame_times)
     if not finite.size:
         seen = "no frame pair could be tracked"
     else:
@@ -339,7 +340,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
     info = analysis.info
     height = int(info.height)
     t = np.asarray(analysis.frame_times, dtype=np.float64)
-    interval = info.frame_interval or (float(np.median(np.diff(t))) if n > 1 else None)
+    interval = clip_frame_interval(info.frame_interval, t)
     if n < _MIN_FRAMES + 2 or not interval:
         raise MeasurementRefused(f"{n} frame(s) are too few for the pan method: it needs a steady pan "
                                  f"of at least {_MIN_FRAMES + 2} frames across vertical edges")

@@ -22,7 +22,7 @@ import numpy as np
 from skewfix.errors import MeasurementRefused
 from skewfix.measure.result import ReadoutEstimate
 from skewfix.motion import FitSettings, PairObservations, fit_residual
-from skewfix.rowclock import RowClock
+from skewfix.rowclock import RowClock, clip_frame_interval
 
 SEARCH_SETTINGS = FitSettings(knots_per_frame=1.5, smoothness=0.02, iterations=4)
 MAX_TRACKS_PER_PAIR = 160
@@ -69,7 +69,7 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     """Estimate the readout from an `Analysis` of ordinary footage (method "motion")."""
     info = analysis.info
     times = analysis.frame_times
-    interval = frame_interval or info.frame_interval or float(np.median(np.diff(times)))
+    interval = frame_interval or clip_frame_interval(info.frame_interval, times)
     pairs = [p for p in analysis.pairs if not p.cut and len(p.p0) >= SEARCH_SETTINGS.min_tracks]
     if len(pairs) < 6:
         raise MeasurementRefused(
