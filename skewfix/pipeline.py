@@ -437,7 +437,8 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
 
     Three threads joined by bounded queues: decoding (plus tracking, for a
     `StreamingWarper`), warping (with the warper's look-ahead), and encoding
-    on the calling thread. ``on_frame(k, warp_map, planes_out)`` is called for
+    on the calling thread. ``on_frame(frame, warp_map, planes_out)`` (the decoded
+    frame, its map and the remapped planes) is called for
     every frame (maps, mattes, reports); ``report`` receives damaged-packet
     counts. ``source`` is ``path`` already opened (it is closed at the end).
     Returns the number of frames written.
@@ -527,7 +528,7 @@ def render(path: str, sink, warper: FrameWarper, fps: Fraction | None = None, pr
                     continue
                 sink.write_planes(planes, obj.pts, obj.pix_fmt)  # opens a deferred sink: before on_frame
                 if on_frame is not None:
-                    on_frame(obj.index, wm, planes)
+                    on_frame(obj, wm, planes)
                 pool.give(*obj.planes)  # the encoder has copied them: free for reuse
                 if planes is not obj.planes:
                     pool.give(*planes)

@@ -159,3 +159,30 @@ def test_crop_border_reports_the_skew_of_the_motion_not_of_the_enlargement(whip,
     # the crop run fits the whole clip at once and the edge run in windows, so the two fits
     # differ by a few hundredths of a pixel; an enlargement counted as skew would add pixels
     assert np.allclose(seen["crop"], seen["edge"], atol=0.25)
+
+
+def test_report_still_shows_the_input_frame_it_names(clip_factory, tmp_path, monkeypatch):
+    """The 'as shot' half of the still is kept from the render (not decoded again) and must be
+    exactly that input frame, although the render reuses its buffers (common practice). The
+    clip is long enough for the still frame's buffers to be reused before the end."""
+    import skewfix.cli.plates as plates
+
+    whip = clip_factory("whip", READOUT_MS / 1000, n_frames=100)
+    shown = {}
+    original = plates.still_png
+
+    def capture(before, after):
+        shown["before"] = before
+        return original(before, after)
+
+    monkeypatch.setattr(plates, "still_png", capture)
+    page = tmp_path / "r.html"
+    assert main(["fix", str(whip[0]), str(tmp_path / "f.mp4"), "--readout", f"{READOUT_MS}ms",
+                 "--report", str(page), "--quiet"]) == 0
+    k = int(re.search(r"Before and after \(frame (\d+)\)", page.read_text(encoding="utf-8")).group(1))
+    frame = plates.decoded_frame_at(str(whip[0]), None, k)
+    from skewfix.decode import open_source
+
+    with open_source(str(whip[0])) as source:
+        info = source.info
+    assert np.array_equal(shown["before"], plates.planes_to_rgb(frame.planes, frame.pix_fmt, info, 8))

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+from dataclasses import replace
 from pathlib import Path
 from typing import Optional
 
@@ -123,7 +124,7 @@ class FixDeliverables:
         self._maps: dict[str, StagedSequence] = {}
         self._matte: StagedSequence | None = None
         self._matte_pattern: FramePattern | None = None
-        self._still = (-1.0, None, None)  # (skew size, frame index, planes)
+        self._still = (-1.0, None, None, None)  # (skew size, frame index, decoded frame, planes after)
         self._skew: dict[int, tuple[float, float]] = {}  # per frame, for the report
 
     @property
@@ -187,10 +188,11 @@ class FixDeliverables:
             self.discard()
             raise
 
-    def on_frame(self, k: int, wm, planes) -> None:
+    def on_frame(self, frame, wm, planes) -> None:
         from skewfix.motionfile import map_skew
         from skewfix.warp import outside_matte
 
+        k = frame.index
         if self.maps_dir is not None or self._matte is not None:
             map_x, map_y = wm.full(self.info.width, self.info.height)
             if self.maps_dir is not None:
@@ -205,8 +207,9 @@ class FixDeliverables:
             if self.border != "crop":
                 self._skew[k] = skew
             size = float(np.sum(np.abs(skew)))  # picks the still (a crop's part is the same every frame)
-            if size > self._still[0]:
-                self._still = (size, k, [np.array(p) for p in planes])
+            if size > self._still[0]:  # keep copies: the render reuses its buffers
+                before = replace(frame, planes=[np.array(p) for p in frame.planes])
+                self._still = (size, k, before, [np.array(p) for p in planes])
 
     def finish(self, result) -> list[str]:
         """Write the motion, CSV, maps, matte and report; returns lines saying what was written."""
@@ -255,9 +258,8 @@ class FixDeliverables:
                                                                  ("motion table", self.motion_csv),
                                                                  ("warp maps", self.maps_dir),
                                                                  ("matte", self.matte)) if p])
-        _, k, after = self._still
+        _, k, before, after = self._still
         if k is not None:
-            before = decoded_frame_at(self.input, self.fps, k)
             content.still_png = still_png(planes_to_rgb(before.planes, before.pix_fmt, result.info, 8),
                                           planes_to_rgb(after, before.pix_fmt, result.info, 8))
             content.still_frame = k
