@@ -18,7 +18,7 @@ import queue
 import threading
 import time
 from collections import deque
-from contextlib import contextmanager, nullcontext
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import Callable
@@ -673,7 +673,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
 
     def open_output():
         # called with the first corrected picture: the first frame has told the rotation by then
-        with getattr(source, "io_lock", None) or nullcontext():  # the decoder thread may be demuxing
+        with source.io_lock:  # the decoding thread may be demuxing the template
             if sink_factory is not None:
                 return sink_factory(info, template)
             return VideoSink(output_path, info, codec=options.codec, crf=options.crf, preset=options.preset,

@@ -36,6 +36,7 @@ import os
 import re
 import shutil
 import tempfile
+import threading
 from dataclasses import dataclass, replace
 from fractions import Fraction
 from pathlib import Path
@@ -209,6 +210,7 @@ class ImageSequenceSource:
         )
         self.lost_frames = 0
         self.decode_errors: list[str] = []
+        self.io_lock = threading.Lock()  # as a video source's (nothing here is shared between threads)
 
     def close(self) -> None:
         return None

@@ -311,21 +311,29 @@ def reskew_command(
     rate = parse_rate(fps) or meta["frame_rate"]
     if is_pattern(input) and rate is None:
         raise UsageProblem(f"{input}: give the sequence's frame rate with --fps (the motion file has none)")
-    with open_source(input, rate) as source:
+    source = open_source(input, rate)  # opened once: checked here, then streamed by the render
+    try:
         info = source.info
-    if (info.width, info.height) != (model.width, model.height):
-        raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
-                         f"{model.width}x{model.height} frames; reskew needs the same size")
-    expected = len(clock.frame_times)
-    found = count_frames(input, info)
-    if found != expected:
-        raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
-                         "reskew needs the same frame count")
+        if (info.width, info.height) != (model.width, model.height):
+            raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
+                             f"{model.width}x{model.height} frames; reskew needs the same size")
+        expected = len(clock.frame_times)
+        found = count_frames(input, info)
+        if found != expected:
+            raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
+                             "reskew needs the same frame count")
+    except BaseException:
+        source.close()
+        raise
     warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
-    source = open_source(input, rate)
-    # opened with the first picture, when the first frame has told the display rotation
-    sink = DeferredSink(lambda: open_sink(input, output, source.info, codec=codec, crf=crf, depth=depth,
-                                          force=force, template=getattr(source, "container", None)))
+
+    def open_output():
+        # with the first picture, when the first frame has told the display rotation
+        with source.io_lock:  # the decoding thread may be demuxing the template
+            return open_sink(input, output, source.info, codec=codec, crf=crf, depth=depth, force=force,
+                             template=getattr(source, "container", None))
+
+    sink = DeferredSink(open_output)
     try:
         with TerminalProgress(quiet) as progress:
             written = render(input, sink, warper, rate, progress, source=source)
