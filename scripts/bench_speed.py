@@ -13,12 +13,16 @@ one four times longer, and the time of `skewfix measure --method flicker`.
     python scripts/bench_speed.py [--quick] [--repeats N] [--profile]
     python scripts/bench_speed.py --costs
     python scripts/bench_speed.py --against REV [--repeats N]
+    python scripts/bench_speed.py --threads [--repeats N]
 
 ``--costs`` instead times each stage alone on one thread at 1080p and prints
 the ratio those costs allow at best (every core busy in both jobs).
 ``--against REV`` runs this tree's fix and a git revision's side by side with
 the plain transcode (mean of N alternating rounds): the fair way to see what a
 change did on a noisy machine.
+``--threads`` runs plain and fix on the 1080p clip while sampling the CPU time
+of every thread of the child (/proc/PID/task), and prints CPU seconds per
+thread: where the cores go when everything runs at once.
 
 Times are the smallest of the repeats (the least disturbed run); only ratios
 measured in the same run are comparable. ``--profile`` adds a cProfile of one
@@ -155,8 +159,24 @@ def peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # may include the parent's
 
 
+def record_thread_names() -> dict[str, str]:
+    """Native thread id -> Python thread name, filled as threads start (for --threads)."""
+    import threading
+
+    names = {str(threading.get_native_id()): "main thread"}
+    original_run = threading.Thread.run
+
+    def named_run(self):
+        names[str(threading.get_native_id())] = self.name
+        original_run(self)
+
+    threading.Thread.run = named_run
+    return names
+
+
 def child_main(job: str, *rest: str) -> None:
     """One measured job in this (fresh) process; prints a JSON report as the last line."""
+    names = record_thread_names() if os.environ.get("SKEWFIX_BENCH_THREADS") else None
     start, cpu_start = time.perf_counter(), time.process_time()
     expected_tree = os.environ.get("SKEWFIX_BENCH_TREE")
     if expected_tree and job != "plain":  # --against: make sure the other revision's code is the one running
@@ -175,6 +195,8 @@ def child_main(job: str, *rest: str) -> None:
     report["seconds"] = time.perf_counter() - start
     report["cpu_s"] = time.process_time() - cpu_start  # all threads of this process
     report["peak_mb"] = peak_rss_mb()
+    if names is not None:
+        report["thread_names"] = names
     print("\n" + json.dumps(report))
 
 
@@ -438,6 +460,73 @@ def against(rev: str, specs: list[ClipSpec], rounds: int, work: Path) -> None:
         subprocess.run(["git", "-C", str(repo), "worktree", "remove", "--force", str(other)], check=False)
 
 
+# -- CPU per thread ----------------------------------------------------------------------
+
+def sample_threads(args: list[str]) -> tuple[dict, dict[str, float]]:
+    """Run a child job, sampling each thread's CPU time; returns (its report, CPU s per thread group)."""
+    tick = os.sysconf("SC_CLK_TCK")
+    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+                            env=dict(os.environ, SKEWFIX_BENCH_THREADS="1"))
+    last: dict[str, tuple[str, int]] = {}  # tid -> (comm, user+system ticks), the last reading
+    while proc.poll() is None:
+        try:
+            tids = os.listdir(f"/proc/{proc.pid}/task")
+        except OSError:
+            break
+        for tid in tids:
+            try:
+                stat = Path(f"/proc/{proc.pid}/task/{tid}/stat").read_text()
+            except OSError:
+                continue
+            fields = stat[stat.rindex(")") + 2:].split()
+            last[tid] = (stat[stat.index("(") + 1:stat.rindex(")")], int(fields[11]) + int(fields[12]))
+        time.sleep(0.005)
+    text = proc.stdout.read().decode(errors="replace").strip().splitlines()
+    if proc.returncode != 0 or not text or not text[-1].startswith("{"):
+        raise RuntimeError(f"{' '.join(Path(a).name for a in args[2:])}: exit {proc.returncode}")
+    report = json.loads(text[-1])
+    names = report.get("thread_names", {})
+    groups: dict[str, float] = {}
+    for tid, (comm, ticks) in last.items():
+        if tid in names:
+            group = names[tid]
+        elif comm.startswith("av:"):
+            group = "FFmpeg decoder threads"
+        else:
+            group = "other native threads (x264, OpenCV)"
+        groups[group] = groups.get(group, 0.0) + ticks / tick
+    return report, groups
+
+
+def thread_table(spec: ClipSpec, rounds: int, work: Path) -> None:
+    """CPU seconds per thread of plain and fix, the mean of ``rounds`` alternating runs."""
+    spec.render()
+    sums: dict[str, dict[str, float]] = {"plain": {}, "fix": {}}
+    walls = {"plain": 0.0, "fix": 0.0}
+    for _ in range(rounds):
+        for job in ("plain", "fix"):
+            report, groups = sample_threads(job_args(job, spec, work / f"{job}{spec.file.suffix}"))
+            walls[job] += report["seconds"] / rounds
+            for group, seconds in groups.items():
+                sums[job][group] = sums[job].get(group, 0.0) + seconds / rounds
+    print(f"CPU seconds per thread, {spec.label}, {spec.frames} frames, mean of {rounds} alternating round(s) "
+          f"(sampled from /proc every 5 ms; a thread's last sample counts)")
+    groups = sorted(set(sums["plain"]) | set(sums["fix"]), key=lambda g: -sums["fix"].get(g, 0.0))
+    head = f"{'thread':38} {'plain':>7} {'fix':>7}"
+    print(head)
+    print("-" * len(head))
+    for group in groups:
+        print(f"{group:38} {sums['plain'].get(group, 0.0):7.2f} {sums['fix'].get(group, 0.0):7.2f}")
+    total = {job: sum(v.values()) for job, v in sums.items()}
+    print(f"{'all threads':38} {total['plain']:7.2f} {total['fix']:7.2f}")
+    print(f"{'wall seconds':38} {walls['plain']:7.2f} {walls['fix']:7.2f}")
+    cores = os.cpu_count() or 1
+    print(f"{'cores busy (CPU / wall)':38} {total['plain'] / walls['plain']:7.2f} {total['fix'] / walls['fix']:7.2f}"
+          f"   of {cores}")
+    print(f"fix/plain if fix kept all {cores} cores busy: {total['fix'] / cores / walls['plain']:.2f}x "
+          f"(measured {walls['fix'] / walls['plain']:.2f}x)")
+
+
 # -- cost of each stage on one core ------------------------------------------------------
 
 def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
@@ -541,6 +630,8 @@ def main(argv=None):
                          "transcode in one run, on the 1080p clip and the one four times longer")
     ap.add_argument("--costs", action="store_true",
                     help="only the CPU cost of each stage on one thread at 1080p, and the floor it implies")
+    ap.add_argument("--threads", action="store_true",
+                    help="only CPU seconds per thread of plain and fix on the 1080p clip")
     argv = sys.argv[1:] if argv is None else list(argv)
     if argv[:1] == ["--child"]:  # internal: one measured job in a fresh process
         child_main(*argv[1:])
@@ -550,6 +641,10 @@ def main(argv=None):
     specs = clip_specs(args.quick)
     if args.costs:
         stage_costs(specs["1080"])
+        return 0
+    if args.threads:
+        with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
+            thread_table(specs["1080"], args.repeats or 3, Path(tmp))
         return 0
     if args.against:
         with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
