@@ -227,3 +227,24 @@ def test_reskew_refuses_a_clip_of_another_size_or_length(plate, tmp_path, capsys
     assert not list(tmp_path.glob("o.*"))
     code, err = run(capsys, "reskew", short / "s.%04d.png", tmp_path / "o.%04d.png", "--motion", tmp_path / "x.json")
     assert code == 1 and "no such motion file" in err
+
+
+@pytest.mark.parametrize("extra, words", [(["--crf", "18"], "--crf applies to video output"),
+                                          (["--codec", "h264"], "--codec applies to video output")])
+def test_reskew_refuses_video_options_for_a_sequence_output(plate, capsys, extra, words):
+    # common practice: an option that cannot take effect is refused, not silently dropped
+    folder = plate[0]
+    target = folder / "unused.%04d.png"
+    code, err = run(capsys, "reskew", folder / "fixed.%04d.png", target, "--motion", folder / "m.json",
+                    "--quiet", *extra)
+    assert code == 2
+    assert words in err and len(err.strip().splitlines()) == 1
+    assert not list(folder.glob("unused.*"))
+
+
+def test_reskew_refuses_depth_for_a_video_output(plate, capsys):
+    folder = plate[0]
+    code, err = run(capsys, "reskew", folder / "fixed.%04d.png", folder / "unused.mp4", "--motion",
+                    folder / "m.json", "--depth", "16", "--quiet")
+    assert code == 2 and "--depth applies to image-sequence output" in err
+    assert not (folder / "unused.mp4").exists()

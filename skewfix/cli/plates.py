@@ -104,6 +104,21 @@ def map_image(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
 # fix: the extra deliverables
 # --------------------------------------------------------------------------
 
+def check_output_options(output: str, sink_options: dict) -> None:
+    """Refuse output options that do not apply to OUTPUT's kind (video or image sequence)."""
+    depth = sink_options.get("depth")
+    if is_pattern(output):
+        video_only = [f"--{key}" for key in ("codec", "crf", "preset") if sink_options.get(key) is not None]
+        if video_only:
+            verb = "applies" if len(video_only) == 1 else "apply"
+            raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
+                               "type from the file extension (.png, .tif)")
+        if depth is not None and depth not in DEPTHS:
+            raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
+    elif depth is not None:
+        raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
+
+
 class FixDeliverables:
     """Motion file, CSV, warp maps, matte and report for one `fix` run.
 
@@ -134,18 +149,9 @@ class FixDeliverables:
     def check(self) -> None:
         from skewfix.motionfile import check_new_file
 
-        depth = self.sink_options.get("depth")
+        check_output_options(self.output, self.sink_options)
         if is_pattern(self.output):
             check_sequence_output(self.input, self.output, self.force)
-            video_only = [f"--{key}" for key in ("codec", "crf", "preset") if self.sink_options.get(key) is not None]
-            if video_only:
-                verb = "applies" if len(video_only) == 1 else "apply"
-                raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
-                                   "type from the file extension (.png, .tif)")
-            if depth is not None and depth not in DEPTHS:
-                raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
-        elif depth is not None:
-            raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
         check_distinct_outputs(self.input, {"OUTPUT": self.output, "--save-motion": self.motion,
                                             "--save-motion-csv": self.motion_csv, "--report": self.report})
         for option, path in (("--save-motion", self.motion), ("--save-motion-csv", self.motion_csv),
@@ -303,6 +309,7 @@ def reskew_command(
         choice(codec.lower(), tuple(CODECS), "--codec")
     if crf is not None and not 0 <= crf <= 51:
         raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
+    check_output_options(output, {"codec": codec, "crf": crf, "depth": depth})
     model, clock, reference_line, meta = load_motion(motion)
     check_output_path(input, output, force)
     if is_pattern(output):
