@@ -39,7 +39,7 @@ from skewfix.measure.flicker import (  # noqa: E402
 )
 from skewfix.synth.flicker import render_flicker_clip  # noqa: E402
 
-BLACK_8BIT = 16.0  # limited-range luma black (ITU-R BT.709 coding, from memory)
+BLACK_8BIT = 16.0  # limited-range luma black (ITU-R BT.709 coding; FFmpeg's swscale writes RGB black as 16)
 
 
 def decode_profiles(path):

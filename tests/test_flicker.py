@@ -21,7 +21,8 @@ from skewfix.errors import MeasurementRefused
 from skewfix.measure.flicker import measure_flicker, plot_flicker, row_profiles_from_luma
 from skewfix.synth.flicker import light_mean, render_flicker_clip
 
-# ITU-R BT.709 limited-range coding: black is code 16 in 8-bit luma (from memory)
+# Limited-range ("video range") coding of ITU-R BT.601/BT.709: black is code 16 in 8-bit luma.
+# test_black_code_is_ffmpegs checks it against FFmpeg's swscale.
 BLACK_8BIT = 16.0
 # IEC 60038: the standard mains frequencies are 50 Hz and 60 Hz
 MAINS_HZ = (50.0, 60.0)
@@ -74,6 +75,15 @@ def still_wall(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("still")
     return render_and_measure(tmp, width=960, height=540, fps=Fraction(25), n_frames=12,
                               readout_s=0.0185, light_hz=100.0, seed=1)
+
+
+def test_black_code_is_ffmpegs():
+    # FFmpeg's swscale (through PyAV), a general-purpose reference: RGB black and white go to the
+    # limited-range luma codes 16 and 235 that the flicker fit takes as black
+    for rgb, code in ((0, BLACK_8BIT), (255, 235.0)):
+        frame = av.VideoFrame.from_ndarray(np.full((16, 16, 3), rgb, np.uint8), format="rgb24")
+        luma = frame.reformat(format="yuv420p").to_ndarray()[:16]
+        assert np.all(luma == code)
 
 
 def test_plain_wall_still_bands_25fps_100hz(still_wall):

@@ -28,9 +28,13 @@ from skewfix.synth.shutter import ShutterRenderer, to_uint8
 
 READOUT = 0.024
 PAN = SteadyPan(vx_px_s=400.0, vy_px_s=60.0)  # a lean of 400 * 0.024 = 9.6 px top to bottom (made here)
-PHONE_CLOCK = Fraction(1, 90000)  # the MPEG 90 kHz system clock (ISO/IEC 13818-1, from memory)
-# ITU-T H.273 code points (from memory): colour primaries 9 = ITU-R BT.2020, transfer
-# characteristics 16 = SMPTE ST 2084 (PQ), matrix coefficients 9 = BT.2020 non-constant luminance.
+# the MPEG 90 kHz clock: time stamps count periods of the 27 MHz system clock / 300
+# (ISO/IEC 13818-1 | ITU-T H.222.0, as ISO/IEC 11172-1 section 2.4.4.3 before it)
+PHONE_CLOCK = Fraction(1, 90000)
+# ITU-T H.273 code points: colour primaries 9 = ITU-R BT.2020 (Table 2), transfer characteristics
+# 16 = SMPTE ST 2084 (PQ, Table 3), matrix coefficients 9 = BT.2020 non-constant luminance
+# (Table 4); as tabulated by colour-science (COLOUR_PRIMARIES_ITUTH273 and its siblings).
+# test_hdr_code_points_are_ffmpegs checks the matrix code against FFmpeg's own enumeration.
 HDR_TAGS = {"color_primaries": 9, "color_trc": 16, "colorspace": 9}
 
 
@@ -218,3 +222,25 @@ def test_a_readout_fits_only_inside_the_frame_interval(steps, fraction):
     else:
         with pytest.raises(UsageProblem, match="longer than the frame interval"):
             clock.check_readout_fits()
+
+
+def test_hdr_code_points_are_ffmpegs(tmp_path):
+    # FFmpeg, a general-purpose reference: its matrix-coefficient enumeration (exposed by PyAV)
+    # numbers BT.2020 as H.273 does, and its MPEG transport-stream muxer counts time in 1/90000 s
+    from av.video.reformatter import Colorspace
+
+    assert Colorspace.BT2020 == HDR_TAGS["colorspace"]
+    path = tmp_path / "clock.ts"
+    with av.open(str(path), "w") as out:
+        stream = out.add_stream("mpeg2video", rate=25)
+        stream.width, stream.height, stream.pix_fmt = 64, 48, "yuv420p"
+        for k in range(10):  # enough packets for the reader's probe
+            frame = av.VideoFrame.from_ndarray(np.zeros((48, 64, 3), np.uint8), format="rgb24")
+            frame = frame.reformat(format="yuv420p")
+            frame.pts = k
+            for packet in stream.encode(frame):
+                out.mux(packet)
+        for packet in stream.encode():
+            out.mux(packet)
+    with av.open(str(path)) as inp:
+        assert inp.streams.video[0].time_base == PHONE_CLOCK

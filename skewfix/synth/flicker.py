@@ -129,7 +129,7 @@ def _prepare_texture(texture, width, height):
     if tex.ndim == 3:
         if np.issubdtype(tex.dtype, np.integer):
             tex = tex.astype(np.float64) / np.iinfo(texture.dtype).max
-        # luminance weights of ITU-R BT.709 (from memory: 0.2126, 0.7152, 0.0722)
+        # luma weights of ITU-R BT.709: KR = 0.2126, KB = 0.0722 (ITU-T H.273 Table 4, code point 1)
         tex = tex[..., 0] * 0.2126 + tex[..., 1] * 0.7152 + tex[..., 2] * 0.0722
     elif tex.ndim == 2:
         if np.issubdtype(tex.dtype, np.integer):
