@@ -499,32 +499,47 @@ def sample_threads(args: list[str]) -> tuple[dict, dict[str, float]]:
 
 
 def thread_table(spec: ClipSpec, rounds: int, work: Path) -> None:
-    """CPU seconds per thread of plain and fix, the mean of ``rounds`` alternating runs."""
+    """CPU seconds per thread of plain and fix, the mean of ``rounds`` alternating runs.
+
+    A third job, "plain, fix's pictures", transcodes fix's own output written
+    losslessly (FFV1): its x264 threads show what encoding the corrected
+    pictures costs, apart from anything else fix does.
+    """
     spec.render()
-    sums: dict[str, dict[str, float]] = {"plain": {}, "fix": {}}
-    walls = {"plain": 0.0, "fix": 0.0}
+    lossless = work / "fixed_pictures.mkv"
+    run_child(cli_args("fix", str(spec.file), str(lossless), "--readout", f"{spec.readout * 1e3:g}ms",
+                       "--codec", "ffv1", "--force", "--quiet"))
+    jobs = {"plain": job_args("plain", spec, work / f"plain{spec.file.suffix}"),
+            "fix": job_args("fix", spec, work / f"fix{spec.file.suffix}"),
+            "plain, fix's pictures": [*job_args("plain", spec, work / "again.mp4")]}
+    jobs["plain, fix's pictures"][4] = str(lossless)  # the source argument
+    sums: dict[str, dict[str, float]] = {job: {} for job in jobs}
+    walls = dict.fromkeys(jobs, 0.0)
     for _ in range(rounds):
-        for job in ("plain", "fix"):
-            report, groups = sample_threads(job_args(job, spec, work / f"{job}{spec.file.suffix}"))
+        for job, args in jobs.items():
+            report, groups = sample_threads(args)
             walls[job] += report["seconds"] / rounds
             for group, seconds in groups.items():
                 sums[job][group] = sums[job].get(group, 0.0) + seconds / rounds
     print(f"CPU seconds per thread, {spec.label}, {spec.frames} frames, mean of {rounds} alternating round(s) "
           f"(sampled from /proc every 5 ms; a thread's last sample counts)")
-    groups = sorted(set(sums["plain"]) | set(sums["fix"]), key=lambda g: -sums["fix"].get(g, 0.0))
-    head = f"{'thread':38} {'plain':>7} {'fix':>7}"
+    groups = sorted({g for v in sums.values() for g in v}, key=lambda g: -sums["fix"].get(g, 0.0))
+    head = f"{'thread':38} " + " ".join(f"{job:>22}" for job in jobs)
     print(head)
     print("-" * len(head))
     for group in groups:
-        print(f"{group:38} {sums['plain'].get(group, 0.0):7.2f} {sums['fix'].get(group, 0.0):7.2f}")
+        print(f"{group:38} " + " ".join(f"{sums[job].get(group, 0.0):22.2f}" for job in jobs))
     total = {job: sum(v.values()) for job, v in sums.items()}
-    print(f"{'all threads':38} {total['plain']:7.2f} {total['fix']:7.2f}")
-    print(f"{'wall seconds':38} {walls['plain']:7.2f} {walls['fix']:7.2f}")
+    print(f"{'all threads':38} " + " ".join(f"{total[job]:22.2f}" for job in jobs))
+    print(f"{'wall seconds':38} " + " ".join(f"{walls[job]:22.2f}" for job in jobs))
+    print(f"{'cores busy (CPU / wall)':38} " + " ".join(f"{total[job] / walls[job]:22.2f}" for job in jobs))
     cores = os.cpu_count() or 1
-    print(f"{'cores busy (CPU / wall)':38} {total['plain'] / walls['plain']:7.2f} {total['fix'] / walls['fix']:7.2f}"
-          f"   of {cores}")
     print(f"fix/plain if fix kept all {cores} cores busy: {total['fix'] / cores / walls['plain']:.2f}x "
           f"(measured {walls['fix'] / walls['plain']:.2f}x)")
+    x264 = "other native threads (x264, OpenCV)"
+    dearer = sums["plain, fix's pictures"][x264] / sums["plain"][x264]
+    print(f"x264 on fix's pictures / on the source's: {dearer:.2f}x "
+          "(the same encoder settings; what encoding the corrected pictures costs beyond the source's)")
 
 
 # -- cost of each stage on one core ------------------------------------------------------
