@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 from fractions import Fraction
+from pathlib import Path
 
+import cv2
 import pytest
 
 from skewfix.synth.residual import decode_rgb  # noqa: F401  (tests import it from here)
@@ -12,6 +14,27 @@ from skewfix.synth.scenes import photo_panorama
 from skewfix.synth.shutter import render_clip
 
 SMALL_W, SMALL_H = 320, 180
+
+
+def run_cli(capsys, *args):
+    """Run the command line in-process; returns (exit status, stderr)."""
+    from skewfix.cli import main
+
+    code = main([str(a) for a in args])
+    return code, capsys.readouterr().err
+
+
+def write_sequence(folder: Path, name: str, frames, first: int = 1) -> None:
+    """Write RGB frames as numbered images; ``name`` is a format string such as 'p.{:04d}.png'."""
+    for k, rgb in enumerate(frames):
+        assert cv2.imwrite(str(folder / name.format(first + k)), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
+
+
+@pytest.fixture(autouse=True)
+def config_dir(tmp_path, monkeypatch):
+    """Every test keeps its saved cameras in its own folder, never the user's."""
+    monkeypatch.setenv("SKEWFIX_CONFIG_DIR", str(tmp_path / "config"))
+    return tmp_path / "config"
 
 
 @pytest.fixture(scope="session")

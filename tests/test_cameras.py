@@ -23,11 +23,6 @@ from skewfix.errors import InputError, UsageProblem
 from skewfix.measure.result import ReadoutEstimate
 
 
-@pytest.fixture(autouse=True)
-def config_dir(tmp_path, monkeypatch):
-    monkeypatch.setenv("SKEWFIX_CONFIG_DIR", str(tmp_path / "config"))
-    return tmp_path / "config"
-
 
 def video_info(width=3840, height=2160, rate=Fraction(25), path="/clips/wall_100hz.mp4"):
     return VideoInfo(path=path, width=width, height=height, pix_fmt="yuv420p", bit_depth=8, codec="h264",

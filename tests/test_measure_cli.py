@@ -23,11 +23,6 @@ JSON_KEYS = {"readout_ms", "line_delay_us", "readout_fraction", "line_order", "u
              "method", "frames_used"}
 
 
-@pytest.fixture(autouse=True)
-def config_dir(tmp_path, monkeypatch):
-    monkeypatch.setenv("SKEWFIX_CONFIG_DIR", str(tmp_path / "config"))
-    return tmp_path / "config"
-
 
 @pytest.fixture(scope="module")
 def clips(tmp_path_factory):

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from skimage.metrics import peak_signal_noise_ratio
 
+from conftest import run_cli
 from skewfix.cli import main
 from skewfix.synth.shutter import to_uint8
 
@@ -20,9 +21,7 @@ READOUT_MS = 20
 FRAME = 5
 
 
-def run(capsys, *args):
-    code = main([str(a) for a in args])
-    return code, capsys.readouterr().err
+run = run_cli
 
 
 class ImageCollector(HTMLParser):

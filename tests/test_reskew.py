@@ -19,6 +19,7 @@ import tifffile
 from scipy import ndimage
 from skimage.metrics import peak_signal_noise_ratio
 
+from conftest import run_cli, write_sequence
 from skewfix.cli import main
 from skewfix.decode import VideoInfo
 from skewfix.motion import MotionModel, MotionSegment, bspline_basis
@@ -34,9 +35,7 @@ CAMERA = WhipPan(peak_px_s=1500.0, centre_s=0.2, duration_s=0.5, tilt_px_s=10.0)
 CENTRAL = 0.70
 
 
-def run(capsys, *args):
-    code = main([str(a) for a in args])
-    return code, capsys.readouterr().err
+run = run_cli
 
 
 def central(img: np.ndarray, keep: float = CENTRAL) -> np.ndarray:
@@ -57,8 +56,7 @@ def read(path) -> np.ndarray:
 
 
 def write_frames(folder: Path, stem: str, frames) -> None:
-    for k, rgb in enumerate(frames):
-        assert cv2.imwrite(str(folder / f"{stem}.{k + 1:04d}.png"), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
+    write_sequence(folder, stem + ".{:04d}.png", frames)
 
 
 def true_motion(clock: RowClock) -> MotionModel:

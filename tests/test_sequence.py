@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from skimage import data
 
-from skewfix.cli import main
+from conftest import run_cli, write_sequence
 from skewfix.decode import VideoInfo
 from skewfix.encode import fill_frame
 from skewfix.sequence import ImageSequenceSink, ImageSequenceSource, planes_to_rgb
@@ -20,10 +20,7 @@ from skewfix.sequence import ImageSequenceSink, ImageSequenceSource, planes_to_r
 W, H = 320, 180
 
 
-def run(capsys, *args):
-    """Run the CLI in-process; returns (exit status, stderr)."""
-    code = main([str(a) for a in args])
-    return code, capsys.readouterr().err
+run = run_cli
 
 
 def astronaut_frames(n: int, bits: int) -> list[np.ndarray]:
@@ -37,11 +34,6 @@ def astronaut_frames(n: int, bits: int) -> list[np.ndarray]:
             crop = crop.astype(np.uint16) * 257 + rng.integers(0, 200, crop.shape, dtype=np.uint16)
         frames.append(np.ascontiguousarray(crop))
     return frames
-
-
-def write_sequence(folder: Path, name: str, frames, first: int) -> None:
-    for k, rgb in enumerate(frames):
-        assert cv2.imwrite(str(folder / name.format(first + k)), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
 
 
 def read_rgb(path) -> np.ndarray:
