@@ -46,7 +46,8 @@ def test_correction_removes_skew(clip_factory, tmp_path, kind, readout):
 
 def test_readout_zero_is_identity_geometry(clip_factory, tmp_path):
     # A global shutter has nothing to correct (fact of the trade); through the
-    # lossless FFV1 codec (IETF RFC 9043, "a lossless, intra-frame video encoding format") the pixels come back unchanged.
+    # FFV1 codec (IETF RFC 9043: "a lossless, intra-frame video encoding format")
+    # the pixels come back unchanged.
     src, _, _ = clip_factory("whip", 0.0, n_frames=10, codec="ffv1", pix_fmt="yuv420p", suffix=".mkv")
     out = tmp_path / "same.mkv"
     fix_clip(str(src), str(out), FixOptions(readout=0.0))
