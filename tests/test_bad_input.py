@@ -158,6 +158,12 @@ CASES = [
     BadCase("readout-longer-than-frame", FIX + ("a/x.mp4", "out.mp4", "--readout", "50ms"), 2,
             ("longer than the frame interval",), "a/x.mp4"),
     BadCase("unknown-codec", FIX + ("a/x.mp4", "out.mp4", "--codec", "vp7") + TEN_MS, 2, ("--codec", "vp7"), None),
+    # x264's CRF scale runs from 0 to 51 at 8 bits (x264 --fullhelp, from memory)
+    BadCase("crf-out-of-range", FIX + ("a/x.mp4", "out.mp4", "--crf", "60") + TEN_MS, 2, ("--crf", "60"), None),
+    BadCase("reskew-unknown-codec", ("reskew", "a/x.mp4", "out.mp4", "--motion", "m.json", "--codec", "vp7"), 2,
+            ("--codec", "vp7"), None),
+    BadCase("reskew-crf-out-of-range", ("reskew", "a/x.mp4", "out.mp4", "--motion", "m.json", "--crf", "-1"), 2,
+            ("--crf", "-1"), None),
     BadCase("pattern-without-files", FIX + ("plate.%04d.png", "out.mp4", "--fps", "24") + TEN_MS, 1,
             ("no files match",), "plate.%04d.png"),
     BadCase("flicker-no-bands", ("measure", "wall.mp4", "--method", "flicker", "--light-hz", "100", "--quiet"), 1,

@@ -10,7 +10,6 @@ from __future__ import annotations
 import csv
 import shutil
 from fractions import Fraction
-from pathlib import Path
 
 import cv2
 import numpy as np
@@ -55,10 +54,6 @@ def read(path) -> np.ndarray:
     return img
 
 
-def write_frames(folder: Path, stem: str, frames) -> None:
-    write_sequence(folder, stem + ".{:04d}.png", frames)
-
-
 def true_motion(clock: RowClock) -> MotionModel:
     """The camera path as the motion model's B-spline (least squares on dense samples)."""
     interval = 1 / float(RATE)
@@ -84,8 +79,8 @@ def plate(tmp_path_factory, panorama):
     rolling = [to_uint8(renderer.rolling(clock, k), 0.003, rng) for k in range(N)]
     views = [to_uint8(renderer.global_view(float(clock.reference_time(k, "middle"))), 0.003, rng)
              for k in range(N)]
-    write_frames(folder, "rs", rolling)
-    write_frames(folder, "gs", views)
+    write_sequence(folder, "rs.{:04d}.png", rolling)
+    write_sequence(folder, "gs.{:04d}.png", views)
     argv = ["fix", folder / "rs.%04d.png", folder / "fixed.%04d.png", "--fps", "25", "--readout", "30ms",
             "--border", "black", "--save-motion", folder / "m.json", "--save-motion-csv", folder / "m.csv",
             "--save-maps", folder / "maps", "--save-matte", folder / "matte.%04d.png", "--quiet"]
@@ -213,7 +208,7 @@ def test_reskew_refuses_a_clip_of_another_size_or_length(plate, tmp_path, capsys
     folder, rolling, _, _ = plate
     small = tmp_path / "small"
     small.mkdir()
-    write_frames(small, "s", [cv2.resize(f, (160, 90)) for f in rolling])
+    write_sequence(small, "s.{:04d}.png", [cv2.resize(f, (160, 90)) for f in rolling])
     code, err = run(capsys, "reskew", small / "s.%04d.png", tmp_path / "o.%04d.png", "--motion", folder / "m.json")
     assert code == 1 and "160x90" in err and "same size" in err and len(err.strip().splitlines()) == 1
     short = tmp_path / "short"

@@ -63,12 +63,6 @@ def fix_command(
         choice(line_order, LINE_ORDERS, "--line-order")
     choice(reference_line, REFERENCE_LINES, "--reference-line")
     choice(border, BORDERS, "--border")
-    if codec is not None:
-        from skewfix.encode import CODECS
-
-        choice(codec.lower(), tuple(CODECS), "--codec")
-    if crf is not None and not 0 <= crf <= 51:
-        raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
     seconds, order, origin, resolver = readout_plan(readout, line_order)
     options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
                          reference_line=reference_line, border=border, codec=codec, crf=crf,

@@ -79,6 +79,31 @@ def check_distinct_outputs(input_path: str, paths: dict[str, str | None]) -> Non
         seen[real] = option
 
 
+def check_output_options(output: str, sink_options: dict) -> None:
+    """Refuse output options that are malformed or do not apply to OUTPUT's kind (video or sequence).
+
+    ``sink_options``: ``codec``, ``crf``, ``preset`` and ``depth`` as given (None when not).
+    """
+    from skewfix.cli.fix import choice
+    from skewfix.encode import CODECS
+
+    codec, crf, depth = (sink_options.get(key) for key in ("codec", "crf", "depth"))
+    if codec is not None:
+        choice(codec.lower(), tuple(CODECS), "--codec")
+    if crf is not None and not 0 <= crf <= 51:
+        raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
+    if is_pattern(output):
+        video_only = [f"--{key}" for key in ("codec", "crf", "preset") if sink_options.get(key) is not None]
+        if video_only:
+            verb = "applies" if len(video_only) == 1 else "apply"
+            raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
+                               "type from the file extension (.png, .tif)")
+        if depth is not None and depth not in DEPTHS:
+            raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
+    elif depth is not None:
+        raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
+
+
 def output_first_number(info) -> int:
     """Frame numbering of the outputs: the input sequence's first number, else 1."""
     return info.first_number if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
@@ -103,21 +128,6 @@ def map_image(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
 # --------------------------------------------------------------------------
 # fix: the extra deliverables
 # --------------------------------------------------------------------------
-
-def check_output_options(output: str, sink_options: dict) -> None:
-    """Refuse output options that do not apply to OUTPUT's kind (video or image sequence)."""
-    depth = sink_options.get("depth")
-    if is_pattern(output):
-        video_only = [f"--{key}" for key in ("codec", "crf", "preset") if sink_options.get(key) is not None]
-        if video_only:
-            verb = "applies" if len(video_only) == 1 else "apply"
-            raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
-                               "type from the file extension (.png, .tif)")
-        if depth is not None and depth not in DEPTHS:
-            raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
-    elif depth is not None:
-        raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
-
 
 class FixDeliverables:
     """Motion file, CSV, warp maps, matte and report for one `fix` run.
@@ -300,15 +310,11 @@ def reskew_command(
     from skewfix.cli.fix import choice
     from skewfix.rowclock import parse_rate
     from skewfix.decode import open_source
-    from skewfix.encode import CODECS, DeferredSink, check_output_path
+    from skewfix.encode import DeferredSink, check_output_path
     from skewfix.motionfile import load_motion
     from skewfix.pipeline import FrameWarper, RenderSettings, render
 
     choice(border, RESKEW_BORDERS, "--border")
-    if codec is not None:
-        choice(codec.lower(), tuple(CODECS), "--codec")
-    if crf is not None and not 0 <= crf <= 51:
-        raise UsageProblem(f"--crf must be between 0 and 51, not {crf}")
     check_output_options(output, {"codec": codec, "crf": crf, "depth": depth})
     model, clock, reference_line, meta = load_motion(motion)
     check_output_path(input, output, force)
