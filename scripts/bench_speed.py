@@ -214,16 +214,22 @@ def run_child(args: list[str], tree: Path | None = None) -> tuple[dict, float]:
         wall = time.perf_counter() - start
         err.seek(0)
         lines = err.read().decode(errors="replace").strip().splitlines() or ["(no message)"]
-    text = proc.stdout.decode(errors="replace").strip().splitlines()
+    return child_report(args, proc.returncode, proc.stdout, lines[-1]), wall
+
+
+def child_report(args: list[str], returncode: int, stdout: bytes, message: str) -> dict:
+    """The JSON report a child printed last; raises if the child failed."""
+    text = stdout.decode(errors="replace").strip().splitlines()
     report = json.loads(text[-1]) if text and text[-1].startswith("{") else {}
-    if proc.returncode != 0 or report.get("exit", 0) != 0:
-        raise RuntimeError(f"{' '.join(Path(a).name for a in args[2:])}: exit {proc.returncode}: {lines[-1]}")
-    return report, wall
+    if returncode != 0 or report.get("exit", 0) != 0:
+        raise RuntimeError(f"{' '.join(Path(a).name for a in args[2:])}: exit {returncode}: {message}")
+    return report
 
 
-def job_args(job: str, spec: ClipSpec, target: Path) -> list[str]:
-    return [sys.executable, __file__, "--child", job, str(spec.file), str(target), spec.codec, repr(spec.readout),
-            spec.interpolation]
+def job_args(job: str, spec: ClipSpec, target: Path, source: Path | None = None) -> list[str]:
+    """A child's command line; ``source`` replaces the clip's own file (same settings)."""
+    return [sys.executable, __file__, "--child", job, str(source or spec.file), str(target), spec.codec,
+            repr(spec.readout), spec.interpolation]
 
 
 def cli_args(*words: str) -> list[str]:
@@ -465,7 +471,8 @@ def against(rev: str, specs: list[ClipSpec], rounds: int, work: Path) -> None:
 def sample_threads(args: list[str]) -> tuple[dict, dict[str, float]]:
     """Run a child job, sampling each thread's CPU time; returns (its report, CPU s per thread group)."""
     tick = os.sysconf("SC_CLK_TCK")
-    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+    out = tempfile.TemporaryFile()  # not a pipe: a child that prints much cannot block on it
+    proc = subprocess.Popen(args, stdout=out, stderr=subprocess.DEVNULL,
                             env=dict(os.environ, SKEWFIX_BENCH_THREADS="1"))
     last: dict[str, tuple[str, int]] = {}  # tid -> (comm, user+system ticks), the last reading
     while proc.poll() is None:
@@ -480,11 +487,10 @@ def sample_threads(args: list[str]) -> tuple[dict, dict[str, float]]:
                 continue
             fields = stat[stat.rindex(")") + 2:].split()
             last[tid] = (stat[stat.index("(") + 1:stat.rindex(")")], int(fields[11]) + int(fields[12]))
-        time.sleep(0.005)
-    text = proc.stdout.read().decode(errors="replace").strip().splitlines()
-    if proc.returncode != 0 or not text or not text[-1].startswith("{"):
-        raise RuntimeError(f"{' '.join(Path(a).name for a in args[2:])}: exit {proc.returncode}")
-    report = json.loads(text[-1])
+        time.sleep(0.01)
+    with out:
+        out.seek(0)
+        report = child_report(args, proc.wait(), out.read(), "(stderr not kept)")
     names = report.get("thread_names", {})
     groups: dict[str, float] = {}
     for tid, (comm, ticks) in last.items():
@@ -511,18 +517,20 @@ def thread_table(spec: ClipSpec, rounds: int, work: Path) -> None:
                        "--codec", "ffv1", "--force", "--quiet"))
     jobs = {"plain": job_args("plain", spec, work / f"plain{spec.file.suffix}"),
             "fix": job_args("fix", spec, work / f"fix{spec.file.suffix}"),
-            "plain, fix's pictures": [*job_args("plain", spec, work / "again.mp4")]}
-    jobs["plain, fix's pictures"][4] = str(lossless)  # the source argument
+            "plain, fix's pictures": job_args("plain", spec, work / "again.mp4", source=lossless)}
     sums: dict[str, dict[str, float]] = {job: {} for job in jobs}
     walls = dict.fromkeys(jobs, 0.0)
+    sampler_cpu = time.process_time()
     for _ in range(rounds):
         for job, args in jobs.items():
             report, groups = sample_threads(args)
             walls[job] += report["seconds"] / rounds
             for group, seconds in groups.items():
                 sums[job][group] = sums[job].get(group, 0.0) + seconds / rounds
+    sampler_cpu = (time.process_time() - sampler_cpu) / (rounds * len(jobs))
     print(f"CPU seconds per thread, {spec.label}, {spec.frames} frames, mean of {rounds} alternating round(s) "
-          f"(sampled from /proc every 5 ms; a thread's last sample counts)")
+          f"(sampled from /proc every 10 ms; a thread's last sample counts; the sampler itself used "
+          f"{sampler_cpu:.2f} s of CPU a job)")
     groups = sorted({g for v in sums.values() for g in v}, key=lambda g: -sums["fix"].get(g, 0.0))
     head = f"{'thread':38} " + " ".join(f"{job:>22}" for job in jobs)
     print(head)
