@@ -179,6 +179,12 @@ class PairObservations:
     p0: np.ndarray  # (n, 2)
     p1: np.ndarray  # (n, 2)
     cut: bool = False
+    #: (n,) int64 identity of each track; a feature followed over several frames keeps one
+    #: id, so the fit can remember that it once moved against the background (None: unknown)
+    ids: np.ndarray | None = None
+    #: how the pair was measured: "tracks" (features), or "global" (whole-frame phase
+    #: correlation only: a shift, no row timing; weaker evidence)
+    method: str = "tracks"
 
 
 def _initial_weights(p0: np.ndarray, p1: np.ndarray) -> np.ndarray:
