@@ -24,12 +24,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-import cv2
 import numpy as np
 
+from skewfix.models import MotionKind, make_kind
 from skewfix.rowclock import RowClock
-
-CURVES = ("pan_x", "pan_y", "roll", "log_zoom")
 
 
 # --------------------------------------------------------------------------
@@ -63,28 +61,20 @@ class MotionSegment:
     last_frame: int
     knot_start: float
     knot_spacing: float
-    coefficients: np.ndarray  # (4, n_coef): pan_x, pan_y, roll, log_zoom
+    coefficients: np.ndarray  # (n_curves, n_coef), in the order of the model's ``curves``
 
     @property
     def n_coef(self) -> int:
         return self.coefficients.shape[1]
 
-    def evaluate(self, t):
-        """Return (pan_x, pan_y, roll, log_zoom) arrays at times ``t``."""
+    def evaluate(self, t) -> np.ndarray:
+        """The curves at times ``t``: an array (n_curves, *t.shape)."""
         idx, w = bspline_basis(t, self.knot_start, self.knot_spacing, self.n_coef)
-        vals = (self.coefficients[:, idx] * w).sum(axis=-1)
-        return vals[0], vals[1], vals[2], vals[3]
+        return (self.coefficients[:, idx] * w).sum(axis=-1)
 
     def tabulated(self, t_lo: float, t_hi: float, samples: int = 257) -> "TabulatedSegment":
         """This segment sampled on [t_lo, t_hi], for evaluating at many times in a short span."""
         return TabulatedSegment(self, t_lo, t_hi, samples)
-
-    def velocity(self, t):
-        """Time derivative of the curves by a central difference (px/s, rad/s)."""
-        dt = self.knot_spacing * 1e-3
-        a = np.array(self.evaluate(np.asarray(t) + dt))
-        b = np.array(self.evaluate(np.asarray(t) - dt))
-        return (a - b) / (2 * dt)
 
 
 class TabulatedSegment:
@@ -101,18 +91,23 @@ class TabulatedSegment:
         self.segment = segment
         self.t_lo, self.t_hi = float(t_lo), float(max(t_hi, t_lo))
         self.times = np.linspace(self.t_lo, self.t_hi, samples)
-        self.values = np.array(segment.evaluate(self.times))  # (4, samples)
+        self.values = segment.evaluate(self.times)  # (n_curves, samples)
 
-    def evaluate(self, t):
+    def evaluate(self, t) -> np.ndarray:
         t = np.asarray(t, dtype=np.float64)
         if self.t_hi - self.t_lo < 1e-12 or t.size == 0 or t.min() < self.t_lo or t.max() > self.t_hi:
             return self.segment.evaluate(t)
-        return tuple(np.interp(t, self.times, v) for v in self.values)
+        return np.stack([np.interp(t, self.times, v) for v in self.values])
+
+
+def default_kind(width: int, height: int) -> MotionKind:
+    return make_kind("similarity", width, height)
 
 
 @dataclass
 class MotionModel:
-    """The whole clip's motion: one `MotionSegment` per shot, plus what was seen."""
+    """The whole clip's motion: one `MotionSegment` per shot, the model that reads
+    the curves (`skewfix.models`), plus what was seen."""
 
     width: int
     height: int
@@ -120,6 +115,13 @@ class MotionModel:
     unmeasured_pairs: list[int] = field(default_factory=list)  # k: pair (k, k+1) gave nothing
     cuts: list[int] = field(default_factory=list)  # k: a cut between k and k+1
     inlier_fraction: float = 1.0
+    kind: MotionKind | None = None
+    #: why this model was used (for notes, reports and measure --json)
+    model_reason: str = ""
+
+    def __post_init__(self):
+        if self.kind is None:
+            self.kind = default_kind(self.width, self.height)
 
     @property
     def centre(self):
@@ -131,23 +133,13 @@ class MotionModel:
                 return seg
         raise IndexError(f"frame {k} is outside the fitted motion")
 
-    def world_from_image(self, seg: MotionSegment, t, px, py):
-        """World-plane coordinates of image point(s) seen at time(s) ``t``."""
-        x, y, th, sg = seg.evaluate(t)
-        cx, cy = self.centre
-        vx, vy = px - cx, py - cy
-        k = np.exp(-sg)
-        c, s = np.cos(th), np.sin(th)
-        return x + k * (c * vx + s * vy), y + k * (-s * vx + c * vy)
+    def world_from_image(self, seg, t, px, py) -> tuple:
+        """The world point(s) seen at image point(s) (px, py) at time(s) ``t``."""
+        return self.kind.to_world(seg.evaluate(t), px, py)
 
-    def image_from_world(self, seg: MotionSegment, t, qx, qy):
-        """Image position at time(s) ``t`` of world point(s) ``q``."""
-        x, y, th, sg = seg.evaluate(t)
-        cx, cy = self.centre
-        dx, dy = qx - x, qy - y
-        k = np.exp(sg)
-        c, s = np.cos(th), np.sin(th)
-        return cx + k * (c * dx - s * dy), cy + k * (s * dx + c * dy)
+    def image_from_world(self, seg, t, world) -> tuple[np.ndarray, np.ndarray]:
+        """Image position at time(s) ``t`` of world point(s) ``world``."""
+        return self.kind.to_image(seg.evaluate(t), world)
 
 
 # --------------------------------------------------------------------------
@@ -160,8 +152,12 @@ class FitSettings:
 
     knots_per_frame  knot density (4 follows vibration up to ~frame rate / 2)
     smoothness       weight of the second-difference penalty
-    model            "similarity" (pan, tilt, roll, zoom) or "translation"
+    model            "similarity" (pan, tilt, roll, zoom) or "translation" (pan, tilt only);
+                     ignored when ``kind`` is given
+    kind             the motion model (`skewfix.models.MotionKind`), e.g. a lens's rotation
     iterations       Gauss-Newton / reweighting rounds
+    knot_spacing     seconds between knots (default: the frame interval / knots_per_frame)
+    knot_origin      a time on the knot grid: windows of one streamed clip share one grid
     """
 
     knots_per_frame: float = 4.0
@@ -169,6 +165,14 @@ class FitSettings:
     model: str = "similarity"
     iterations: int = 4
     min_tracks: int = 8
+    kind: MotionKind | None = None
+    knot_spacing: float | None = None
+    knot_origin: float | None = None
+
+    def kind_for(self, width: int, height: int) -> MotionKind:
+        if self.kind is not None:
+            return self.kind
+        return make_kind("similarity", width, height, translation_only=self.model == "translation")
 
 
 @dataclass
@@ -187,19 +191,6 @@ class PairObservations:
     method: str = "tracks"
 
 
-def _initial_weights(p0: np.ndarray, p1: np.ndarray) -> np.ndarray:
-    """RANSAC similarity between the two point sets (Fischler & Bolles, 1981)."""
-    if len(p0) < 4:
-        return np.ones(len(p0))
-    _, inliers = cv2.estimateAffinePartial2D(
-        p0.astype(np.float32), p1.astype(np.float32), method=cv2.RANSAC, ransacReprojThreshold=3.0
-    )
-    if inliers is None:
-        return np.ones(len(p0))
-    w = inliers.ravel().astype(np.float64)
-    return w if w.sum() >= 4 else np.ones(len(p0))
-
-
 def split_shots(n_frames: int, pairs: list[PairObservations]) -> list[tuple[int, int]]:
     """Frame ranges of the shots between detected cuts."""
     cut_after = sorted(p.k for p in pairs if p.cut)
@@ -216,17 +207,25 @@ def fit_motion(
     clock: RowClock,
     width: int,
     settings: FitSettings | None = None,
+    anchors: dict[int, np.ndarray] | None = None,
 ) -> MotionModel:
-    """Fit the clip's motion curves from timed tracks (one spline per shot)."""
+    """Fit the clip's motion curves from timed tracks (one spline per shot).
+
+    ``anchors`` maps a shot's first frame to the gauge curves' values at that
+    frame's start time (a streamed clip carries its gauge from one window to
+    the next); without one, the gauge curves start at zero.
+    """
     settings = settings or FitSettings()
+    kind = settings.kind_for(width, clock.height)
     n_frames = len(clock.frame_times)
     shots = split_shots(n_frames, pairs)
-    model = MotionModel(width=width, height=clock.height, segments=[])
+    model = MotionModel(width=width, height=clock.height, segments=[], kind=kind)
     model.cuts = sorted(p.k for p in pairs if p.cut)
     inl, tot = 0.0, 0
     for first, last in shots:
         shot_pairs = [p for p in pairs if first <= p.k < last and not p.cut]
-        seg, w_sum, n_obs = _fit_segment(shot_pairs, clock, width, first, last, settings)
+        anchor = None if anchors is None else anchors.get(first)
+        seg, w_sum, n_obs = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor)
         model.segments.append(seg)
         inl += w_sum
         tot += n_obs
@@ -255,127 +254,166 @@ def _second_difference(n: int):
     return sp.diags([1.0, -2.0, 1.0], [0, 1, 2], shape=(max(n - 2, 0), n), format="csr")
 
 
-def _fit_segment(pairs, clock: RowClock, width, first, last, settings: FitSettings):
-    sp, spla = load_solver()
+def knot_grid(clock: RowClock, first: int, last: int, settings: FitSettings) -> tuple[float, float, int]:
+    """(knot_start, knot_spacing, n_coef) covering frames first..last with a frame to spare
+    before and two after; on the shared grid of ``settings.knot_origin`` when set."""
     interval = clock.median_interval()
     if not np.isfinite(interval) or interval <= 0:
         interval = 1.0 / 25
-    spacing = interval / settings.knots_per_frame
+    spacing = settings.knot_spacing or interval / settings.knots_per_frame
     t_lo = clock.frame_times[first] - interval
+    if settings.knot_origin is not None:
+        t_lo = settings.knot_origin + np.floor((t_lo - settings.knot_origin) / spacing) * spacing
     t_hi = clock.frame_times[last] + 2 * interval
     n_coef = int(np.ceil((t_hi - t_lo) / spacing)) + 3
-    coef = np.zeros((4, n_coef))
+    return float(t_lo), float(spacing), n_coef
+
+
+class _Track:
+    """The usable tracks of one shot, stacked, with their times and spline bases."""
+
+    def __init__(self, pairs, clock: RowClock, seg: MotionSegment):
+        self.p0 = np.concatenate([p.p0 for p in pairs]).astype(np.float64)
+        self.p1 = np.concatenate([p.p1 for p in pairs]).astype(np.float64)
+        self.k = np.concatenate([np.full(len(p.p0), p.k) for p in pairs])
+        self.t0 = clock.row_time(self.k, self.p0[:, 1])
+        self.t1 = clock.row_time(self.k + 1, self.p1[:, 1])
+        self.idx0, self.b0 = bspline_basis(self.t0, seg.knot_start, seg.knot_spacing, seg.n_coef)
+        self.idx1, self.b1 = bspline_basis(self.t1, seg.knot_start, seg.knot_spacing, seg.n_coef)
+
+    def __len__(self):
+        return len(self.p0)
+
+
+def _spline_from_samples(times, values, seg: MotionSegment, penalty_one, weight: float = 1e-3) -> np.ndarray:
+    """Penalised least-squares spline coefficients (n_curves, n_coef) through samples."""
+    sp, spla = load_solver()
+    idx, w = bspline_basis(times, seg.knot_start, seg.knot_spacing, seg.n_coef)
+    rows = np.repeat(np.arange(len(times)), 4)
+    basis = sp.csr_matrix((w.ravel(), (rows, idx.ravel())), shape=(len(times), seg.n_coef))
+    lhs = (basis.T @ basis + penalty_one * weight + sp.identity(seg.n_coef) * 1e-9).tocsc()
+    return np.stack([spla.spsolve(lhs, basis.T @ v) for v in values])
+
+
+def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings: FitSettings, anchor=None):
+    sp, spla = load_solver()
+    t_lo, spacing, n_coef = knot_grid(clock, first, last, settings)
+    n_curves = kind.n_curves
+    coef = np.zeros((n_curves, n_coef))
+    anchor_values = np.zeros(n_curves) if anchor is None else np.asarray(anchor, dtype=np.float64)
+    coef[:] = anchor_values[:, None]  # a start near the truth for models that are not linear
     seg = MotionSegment(first, last, t_lo, spacing, coef)
 
     usable = [p for p in pairs if len(p.p0) >= settings.min_tracks]
     if not usable:
         return seg, 0.0, 0
-    p0 = np.concatenate([p.p0 for p in usable]).astype(np.float64)
-    p1 = np.concatenate([p.p1 for p in usable]).astype(np.float64)
-    k0 = np.concatenate([np.full(len(p.p0), p.k) for p in usable])
-    w0 = np.concatenate([_initial_weights(p.p0, p.p1) for p in usable])
-    t0 = clock.row_time(k0, p0[:, 1])
-    t1 = clock.row_time(k0 + 1, p1[:, 1])
-    idx0, b0 = bspline_basis(t0, t_lo, spacing, n_coef)
-    idx1, b1 = bspline_basis(t1, t_lo, spacing, n_coef)
-    cx, cy = (width - 1) / 2.0, (clock.height - 1) / 2.0
-    v0 = p0 - (cx, cy)
-    v1 = p1 - (cx, cy)
-    n = len(p0)
-    radius = 0.5 * np.hypot(width, clock.height)
-    n_curves = 4 if settings.model == "similarity" else 2
+    tracks = _Track(usable, clock, seg)
+    n = len(tracks)
+    w0 = np.concatenate([_initial_weights(kind, p) for p in usable])
+    active = list(kind.active)
+    n_act = len(active)
+    scales = kind.curve_scales()
 
-    # Penalty: second differences per curve; angles/log-zoom scaled to pixels.
+    # Penalty: second differences per curve, each curve scaled to pixels.
     d2 = _second_difference(n_coef)
     pen_one = (d2.T @ d2).tocsr()
-    scales = np.array([1.0, 1.0, radius, radius])[:n_curves]
-    penalty = sp.block_diag([pen_one * (settings.smoothness * s * s) for s in scales], format="csr")
-    ridge = sp.identity(n_curves * n_coef, format="csr") * 1e-9
-    # Gauge: the world plane may be shifted, rotated or scaled freely (q -> s R q + d
-    # with X, theta, sigma following), which leaves every image unchanged. Pin all
-    # four curves to zero at the shot's first frame so the solution is unique.
+    penalty = sp.block_diag([pen_one * (settings.smoothness * scales[c] ** 2) for c in active], format="csr")
+    ridge = sp.identity(n_act * n_coef, format="csr") * 1e-9
+    # Gauge: the world's own frame is free (a similarity's plane may be shifted, rotated and
+    # scaled; a rotation's world may be turned), which leaves every image unchanged. Pin the
+    # gauge curves at the shot's first frame (to zero, or to the values carried over).
     a_idx, a_w = bspline_basis(np.array([clock.frame_times[first]]), t_lo, spacing, n_coef)
-    anchor_rows = []
-    for curve in range(n_curves):
-        row = np.zeros(n_curves * n_coef)
-        row[curve * n_coef + a_idx[0]] = a_w[0] * np.sqrt(1e3) * scales[curve]
-        anchor_rows.append(row)
-    anchor = sp.csr_matrix(np.array(anchor_rows))
-    ridge = ridge + (anchor.T @ anchor).tocsr()
-    ridge_rot = None
+    anchor_rows, anchor_target = [], []
+    for pos, curve in enumerate(active):
+        if curve in kind.gauge:
+            row = np.zeros(n_act * n_coef)
+            row[pos * n_coef + a_idx[0]] = a_w[0] * np.sqrt(1e3) * scales[curve]
+            anchor_rows.append(row)
+            anchor_target.append(anchor_values[curve] * np.sqrt(1e3) * scales[curve])
+    anchor_m = sp.csr_matrix(np.array(anchor_rows)) if anchor_rows else None
+    anchor_t = np.array(anchor_target)
 
-    rows_x = np.arange(n)
-    rows_y = np.arange(n) + n
+    guess = kind.initial_frame_values(usable, clock, first, last, anchor_values)
+    if guess is not None:
+        times, values = guess
+        coef[:] = _spline_from_samples(times, values, seg, pen_one)
+        seg.coefficients = coef
+
     weights = w0.copy()
     weights[weights == 0] = 1e-3
     for it in range(settings.iterations):
-        x0, y0, th0, sg0 = seg.evaluate(t0)
-        x1, y1, th1, sg1 = seg.evaluate(t1)
-        a0, a1 = np.exp(-sg0), np.exp(-sg1)
-        c0, s0, c1, s1 = np.cos(th0), np.sin(th0), np.cos(th1), np.sin(th1)
-        # A v with A = exp(-sigma) R(-theta)
-        av0 = np.stack([a0 * (c0 * v0[:, 0] + s0 * v0[:, 1]), a0 * (-s0 * v0[:, 0] + c0 * v0[:, 1])], 1)
-        av1 = np.stack([a1 * (c1 * v1[:, 0] + s1 * v1[:, 1]), a1 * (-s1 * v1[:, 0] + c1 * v1[:, 1])], 1)
-        resid = np.stack([x0 - x1, y0 - y1], 1) + av0 - av1  # (n, 2)
-
+        v0 = seg.evaluate(tracks.t0)
+        v1 = seg.evaluate(tracks.t1)
+        resid, jac0, jac1 = kind.constraint(v0, tracks.p0, v1, tracks.p1)
+        bad = ~np.all(np.isfinite(resid), axis=1)
+        resid[bad] = 0.0
+        jac0[bad] = 0.0
+        jac1[bad] = 0.0
+        m = resid.shape[1]
         if it > 0:
-            norm = np.hypot(resid[:, 0], resid[:, 1])
-            scale = max(1.4826 * np.median(norm[w0 > 0]) if np.any(w0 > 0) else np.median(norm), 0.25)
+            norm = np.sqrt(np.sum(resid * resid, axis=1))
+            good = (w0 > 0) & ~bad
+            scale = max(1.4826 * np.median(norm[good]) if np.any(good) else np.median(norm), 0.25)
             weights = 1.0 / (1.0 + (norm / (2.5 * scale)) ** 2)
+        weights[bad] = 0.0
 
-        # Jacobian blocks (sparse): each residual touches 4 coefficients at t0 and at t1.
+        # Sparse Jacobian: each residual touches 4 coefficients of each curve at t0 and at t1.
         data, ri, ci = [], [], []
-
-        def add(rows, col_offset, vals0, vals1):
-            ri.append(np.repeat(rows, 4)); ci.append((idx0 + col_offset).ravel()); data.append((b0 * vals0[:, None]).ravel())
-            ri.append(np.repeat(rows, 4)); ci.append((idx1 + col_offset).ravel()); data.append((b1 * vals1[:, None]).ravel())
-
-        ones = np.ones(n)
-        add(rows_x, 0, ones, -ones)
-        add(rows_y, n_coef, ones, -ones)
-        if n_curves == 4:
-            # d(A v)/d theta = exp(-sigma) * (-sin, cos; -cos, -sin) v
-            dth0 = np.stack([a0 * (-s0 * v0[:, 0] + c0 * v0[:, 1]), a0 * (-c0 * v0[:, 0] - s0 * v0[:, 1])], 1)
-            dth1 = np.stack([a1 * (-s1 * v1[:, 0] + c1 * v1[:, 1]), a1 * (-c1 * v1[:, 0] - s1 * v1[:, 1])], 1)
-            add(rows_x, 2 * n_coef, dth0[:, 0], -dth1[:, 0])
-            add(rows_y, 2 * n_coef, dth0[:, 1], -dth1[:, 1])
-            add(rows_x, 3 * n_coef, -av0[:, 0], av1[:, 0])
-            add(rows_y, 3 * n_coef, -av0[:, 1], av1[:, 1])
-        jac = sp.csr_matrix(
-            (np.concatenate(data), (np.concatenate(ri), np.concatenate(ci))),
-            shape=(2 * n, n_curves * n_coef),
-        )
-        wv = np.concatenate([weights, weights])
-        r = resid.T.ravel()  # x residuals then y residuals
+        for j in range(m):
+            rows = np.repeat(np.arange(n) + j * n, 4)
+            for pos, curve in enumerate(active):
+                for idx, b, jac in ((tracks.idx0, tracks.b0, jac0), (tracks.idx1, tracks.b1, jac1)):
+                    ri.append(rows)
+                    ci.append((idx + pos * n_coef).ravel())
+                    data.append((b * jac[:, j, curve][:, None]).ravel())
+        jac = sp.csr_matrix((np.concatenate(data), (np.concatenate(ri), np.concatenate(ci))),
+                            shape=(m * n, n_act * n_coef))
+        wv = np.tile(weights, m)
+        r = resid.T.ravel()  # first components, then second, ...
         jtw = jac.T.multiply(wv).tocsr()
+        c_flat = coef[active].ravel()
         lhs = jtw @ jac + penalty + ridge
-        c_flat = coef[:n_curves].ravel()
         rhs = -(jtw @ r) - penalty @ c_flat - ridge @ c_flat
-        if ridge_rot is not None:
-            lhs = lhs + ridge_rot
-            rhs = rhs - ridge_rot @ c_flat
+        if anchor_m is not None:
+            lhs = lhs + (anchor_m.T @ anchor_m)
+            rhs = rhs - anchor_m.T @ (anchor_m @ c_flat - anchor_t)
         step = spla.spsolve(lhs.tocsc(), rhs)
-        coef[:n_curves] = (c_flat + step).reshape(n_curves, n_coef)
+        coef[active] = (c_flat + step).reshape(n_act, n_coef)
         seg.coefficients = coef
-        if np.max(np.abs(step[: 2 * n_coef])) < 1e-4 and it > 2:
+        moved = np.max(np.abs(step.reshape(n_act, n_coef)) * scales[active][:, None])
+        if moved < 1e-4 and it > 2:
             break
     return seg, float(np.sum(weights > 0.5)), n
 
 
-def fit_residual(pairs, clock: RowClock, width: int, settings: FitSettings) -> tuple[float, int]:
-    """Robust RMS misfit of the tracks to a fitted motion (used by self-calibration)."""
-    model = fit_motion(pairs, clock, width, settings)
-    sq, count = 0.0, 0
+def _initial_weights(kind: MotionKind, pair: PairObservations) -> np.ndarray:
+    """0/1 weights from the model's one-pair RANSAC (all ones when it cannot tell)."""
+    w = kind.pair_inliers(pair.p0, pair.p1)
+    if w is None or w.sum() < 4:
+        return np.ones(len(pair.p0))
+    return w
+
+
+def transfer_errors(model: MotionModel, pairs, clock: RowClock, settings: FitSettings) -> np.ndarray:
+    """Per track, how far (px) the fitted motion carries p0 from where p1 was seen."""
+    out = []
     for p in pairs:
         if p.cut or len(p.p0) < settings.min_tracks:
             continue
         seg = model.segment_for(p.k)
-        t0 = clock.row_time(p.k, p.p0[:, 1])
-        t1 = clock.row_time(p.k + 1, p.p1[:, 1])
-        qx0, qy0 = model.world_from_image(seg, t0, p.p0[:, 0], p.p0[:, 1])
-        qx1, qy1 = model.world_from_image(seg, t1, p.p1[:, 0], p.p1[:, 1])
-        e = np.hypot(qx0 - qx1, qy0 - qy1)
-        e = np.minimum(e, 3.0)  # bounded loss: outliers count but cannot dominate
-        sq += float(np.sum(e * e))
-        count += len(e)
-    return (np.sqrt(sq / count) if count else float("nan")), count
+        v0 = seg.evaluate(clock.row_time(p.k, p.p0[:, 1]))
+        v1 = seg.evaluate(clock.row_time(p.k + 1, p.p1[:, 1]))
+        x, y = model.kind.transfer(v0, p.p0, v1)
+        e = np.hypot(x - p.p1[:, 0], y - p.p1[:, 1])
+        out.append(np.where(np.isfinite(e), e, np.inf))
+    return np.concatenate(out) if out else np.zeros(0)
+
+
+def fit_residual(pairs, clock: RowClock, width: int, settings: FitSettings, bound: float = 3.0) -> tuple[float, int]:
+    """Robust RMS misfit (px) of the tracks to a fitted motion (self-calibration, model choice).
+
+    Each track's transfer error counts up to ``bound`` px: outliers count but cannot dominate.
+    """
+    model = fit_motion(pairs, clock, width, settings)
+    e = np.minimum(transfer_errors(model, pairs, clock, settings), bound)
+    return (float(np.sqrt(np.mean(e * e))) if e.size else float("nan")), int(e.size)

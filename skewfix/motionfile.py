@@ -1,6 +1,6 @@
 """Saved motion: what a correction solved, as JSON (for machines) and CSV (for people).
 
-Motion file format ``skewfix-motion``, version 1
+Motion file format ``skewfix-motion``, version 2
 ------------------------------------------------
 
 One JSON object (UTF-8). Times are seconds, lengths pixels of the stored frame
@@ -8,7 +8,11 @@ One JSON object (UTF-8). Times are seconds, lengths pixels of the stored frame
 
     {
       "format": "skewfix-motion",          # always this string
-      "version": 1,                         # integer; readers refuse versions they do not know
+      "version": 2,                         # integer; readers refuse versions they do not know
+      "model": {                            # which motion model the curves belong to
+        "kind": "similarity",               # or "rotation"
+        ...                                 # the model's own parameters (see below)
+      },
       "created_by": "skewfix 0.1.0",
       "source": {
         "path": "plate.%04d.tif",           # what was analysed (informative)
@@ -31,13 +35,15 @@ One JSON object (UTF-8). Times are seconds, lengths pixels of the stored frame
           "first_frame": 0, "last_frame": 57,
           "knot_start_s": -0.0417,          # uniform cubic B-spline grid
           "knot_spacing_s": 0.0104,
-          "pan_x_px": [...],                # n >= 4 spline coefficients per curve, equal lengths
-          "pan_y_px": [...],
+          "pan_x_px": [...],                # the model's curves: n >= 4 spline coefficients
+          "pan_y_px": [...],                #   each, equal lengths
           "roll_rad": [...],
           "log_zoom": [...]
         }
       ]
     }
+
+Version 1 had no ``model`` and always the four similarity curves; it is still read.
 
 Row ``y`` of frame ``k`` starts at ``t = frame_times_s[k] + readout_s * f``
 with ``f = y / height`` (top-down) or ``(height - 1 - y) / height``
@@ -50,11 +56,25 @@ curves say where a world-fixed point ``q`` is seen at time ``t``::
 
     p = c + exp(log_zoom) * R(roll) * (q - (pan_x, pan_y)),   c = ((width-1)/2, (height-1)/2)
 
-so ``pan_x`` grows as the camera pans right (the picture moves left).
+so ``pan_x`` grows as the camera pans right (the picture moves left). The
+similarity's parameters: none, or ``"translation_only": true`` (roll and zoom
+held at zero).
+
+The ``rotation`` model's curves are ``rot_x_rad``, ``rot_y_rad``,
+``rot_z_rad``: the rotation vector ``r(t)`` of the camera's orientation ``R(t) =
+exp([r]x)`` (Rodrigues' formula), world to camera, axes x right, y down,
+z forward. Its parameters: ``focal_length_px`` ``f``, ``principal_point_px``
+``[cx, cy]``, ``distortion`` ``[k1, k2]``, and ``focal_estimated`` /
+``focal_uncertainty_px`` when the focal length was measured from the footage.
+A world direction ``d`` is seen at time ``t`` at the pixel ``p`` with::
+
+    (x, y, z) = R(t) d,   (u, v) = (x / z, y / z),   g = 1 + k1 (u^2 + v^2) + k2 (u^2 + v^2)^2
+    p = (cx + f g u, cy + f g v)
 
 The CSV has one row per frame: ``frame`` (0-based), ``time_s`` (frame start),
-``reference_time_s``, the curves at the reference time (``pan_x_px``,
-``pan_y_px``, ``roll_deg``, ``zoom`` as a factor), and the skew the
+``reference_time_s``, the curves at the reference time (similarity:
+``pan_x_px``, ``pan_y_px``, ``roll_deg``, ``zoom`` as a factor; rotation:
+``rot_x_deg``, ``rot_y_deg``, ``rot_z_deg``), and the skew the
 correction removes: ``skew_x_px`` (how far the bottom row sat right of the top
 row in the input, e.g. the lean of a vertical edge across the frame height) and
 ``skew_y_px`` (how much taller the input picture was than the corrected one).
@@ -80,10 +100,14 @@ from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, RowClock
 from skewfix.warp import WarpMap, correction_map
 
 FORMAT_NAME = "skewfix-motion"
-FORMAT_VERSION = 1
-CURVE_KEYS = ("pan_x_px", "pan_y_px", "roll_rad", "log_zoom")
-CSV_COLUMNS = ("frame", "time_s", "reference_time_s", "pan_x_px", "pan_y_px", "roll_deg", "zoom",
-               "skew_x_px", "skew_y_px")
+FORMAT_VERSION = 2
+VERSION_1_CURVES = ("pan_x_px", "pan_y_px", "roll_rad", "log_zoom")  # the similarity's, version 1's only
+
+
+def csv_columns(model: MotionModel) -> tuple[str, ...]:
+    """The CSV's columns for this model's curves."""
+    curves = tuple(model.kind.describe(np.zeros((model.kind.n_curves, 1))))
+    return ("frame", "time_s", "reference_time_s") + curves + ("skew_x_px", "skew_y_px")
 
 
 def check_new_file(path: str | os.PathLike, force: bool, option: str) -> None:
@@ -127,6 +151,7 @@ def motion_document(model: MotionModel, clock: RowClock, reference_line: str, in
             "reference_line": reference_line,
             "frame_times_s": _floats(clock.frame_times),
         },
+        "model": {"kind": model.kind.name, **model.kind.parameters()},
         "cuts_after": [int(k) for k in model.cuts],
         "unmeasured_after": [int(k) for k in model.unmeasured_pairs],
         "inlier_fraction": float(model.inlier_fraction),
@@ -136,7 +161,7 @@ def motion_document(model: MotionModel, clock: RowClock, reference_line: str, in
                 "last_frame": int(seg.last_frame),
                 "knot_start_s": float(seg.knot_start),
                 "knot_spacing_s": float(seg.knot_spacing),
-                **{key: _floats(seg.coefficients[i]) for i, key in enumerate(CURVE_KEYS)},
+                **{key: _floats(seg.coefficients[i]) for i, key in enumerate(model.kind.curves)},
             }
             for seg in model.segments
         ],
@@ -172,17 +197,17 @@ def motion_table(model: MotionModel, clock: RowClock, reference_line: str) -> li
     rows = []
     for k in range(len(clock.frame_times)):
         t_ref = float(clock.reference_time(k, reference_line))
-        px, py, roll, log_zoom = (float(v[0]) for v in model.segment_for(k).evaluate(np.array([t_ref])))
+        curves = model.kind.describe(model.segment_for(k).evaluate(np.array([t_ref])))
         rows.append({"frame": k, "time_s": float(clock.frame_times[k]), "reference_time_s": t_ref,
-                     "pan_x_px": px, "pan_y_px": py, "roll_deg": math.degrees(roll), "zoom": math.exp(log_zoom),
+                     **{name: float(v[0]) for name, v in curves.items()},
                      "skew_x_px": float(skew[k, 0]), "skew_y_px": float(skew[k, 1])})
     return rows
 
 
 def save_motion_csv(path: str | os.PathLike, model: MotionModel, clock: RowClock, reference_line: str) -> Path:
-    """Write one CSV row per frame (columns in `CSV_COLUMNS`), whole or not at all."""
+    """Write one CSV row per frame (columns: `csv_columns`), whole or not at all."""
     buf = io.StringIO()
-    writer = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, lineterminator="\n")
+    writer = csv.DictWriter(buf, fieldnames=csv_columns(model), lineterminator="\n")
     writer.writeheader()
     for row in motion_table(model, clock, reference_line):
         writer.writerow({key: (f"{value:.9g}" if isinstance(value, float) else value) for key, value in row.items()})
@@ -257,6 +282,23 @@ def _parse_rate(reader: _Reader, text) -> Fraction | None:
     return rate
 
 
+def _read_kind(r: _Reader, doc: dict, version: int, width: int, height: int):
+    """The motion model a document names (version 1: always the similarity)."""
+    from skewfix.models import kind_from_parameters, registered_kinds
+
+    if version == 1:
+        return kind_from_parameters("similarity", width, height, {})
+    spec = r.get(doc, "model")
+    if not isinstance(spec, dict):
+        r.fail("'model' must be an object")
+    name = r.choice(spec, "kind", registered_kinds(), "model")
+    params = {key: value for key, value in spec.items() if key != "kind"}
+    try:
+        return kind_from_parameters(name, width, height, params)
+    except (TypeError, ValueError) as exc:
+        r.fail(f"'model' has parameters the {name} model does not take: {exc}")
+
+
 def parse_motion(doc, path: str = "motion file"):
     """Validate a decoded motion document; returns (MotionModel, RowClock, reference_line, meta)."""
     r = _Reader(path)
@@ -284,6 +326,7 @@ def parse_motion(doc, path: str = "motion file"):
         r.fail(f"'timing.frame_times_s' has {len(times)} entries for {n_frames} frames")
     if n_frames > 1 and not np.all(np.diff(times) > 0):
         r.fail("'timing.frame_times_s' must increase")
+    kind = _read_kind(r, doc, version, width, height)
     segments_doc = r.get(doc, "segments")
     if not isinstance(segments_doc, list) or not segments_doc:
         r.fail("'segments' must be a non-empty list")
@@ -295,10 +338,10 @@ def parse_motion(doc, path: str = "motion file"):
         if first != expect_first:
             r.fail(f"'{where}' starts at frame {first}; the segments must cover every frame in order")
         expect_first = last + 1
-        coefficients = [r.numbers(sd, key, where) for key in CURVE_KEYS]
+        coefficients = [r.numbers(sd, key, where) for key in kind.curves]
         n_coef = len(coefficients[0])
         if n_coef < 4 or any(len(c) != n_coef for c in coefficients):
-            r.fail(f"'{where}' needs the four curves with the same number (at least 4) of coefficients")
+            r.fail(f"'{where}' needs the {len(kind.curves)} curves with the same number (at least 4) of coefficients")
         segments.append(MotionSegment(first, last, r.number(sd, "knot_start_s", where),
                                       r.number(sd, "knot_spacing_s", where, positive=True),
                                       np.stack(coefficients)))
@@ -308,7 +351,7 @@ def parse_motion(doc, path: str = "motion file"):
                         unmeasured_pairs=[int(k) for k in r.numbers(doc, "unmeasured_after", whole=True)]
                         if "unmeasured_after" in doc else [],
                         cuts=[int(k) for k in r.numbers(doc, "cuts_after", whole=True)],
-                        inlier_fraction=float(doc.get("inlier_fraction", 1.0)))
+                        inlier_fraction=float(doc.get("inlier_fraction", 1.0)), kind=kind)
     try:
         clock = RowClock(times, height, float(readout), line_order)
     except SkewfixError as exc:

@@ -52,18 +52,18 @@ def _png(fig) -> bytes:
 
 
 def motion_plot_png(model: MotionModel, clock: RowClock, cuts=()) -> bytes:
-    """Pan x/y (px), roll (degrees) and zoom (%) against time, one line per shot."""
-    fig = _figure(6.4)
-    axes = fig.subplots(4, 1, sharex=True)
-    labels = ("pan x (px)", "pan y (px)", "roll (°)", "zoom (%)")
+    """The model's curves in units people read (pan in px, angles in degrees...) against
+    time, one line per shot."""
+    labels = tuple(model.kind.describe(np.zeros((model.kind.n_curves, 1))))
+    fig = _figure(1.6 * len(labels))
+    axes = fig.subplots(len(labels), 1, sharex=True)
     interval = clock.median_interval() if len(clock.frame_times) > 1 else 0.04
     for seg in model.segments:
         t0 = clock.frame_times[seg.first_frame]
         t1 = clock.frame_times[seg.last_frame] + (interval if np.isfinite(interval) else 0.04)
         n = max(8, int(np.ceil((t1 - t0) / seg.knot_spacing * SAMPLES_PER_KNOT)))
         t = np.linspace(t0, t1, n)
-        px, py, roll, log_zoom = seg.evaluate(t)
-        for ax, values in zip(axes, (px, py, np.degrees(roll), (np.exp(log_zoom) - 1) * 100)):
+        for ax, values in zip(axes, model.kind.describe(seg.evaluate(t)).values()):
             ax.plot(t, values, color="#1f5f8b", linewidth=1.2)
     for ax, label in zip(axes, labels):
         ax.set_ylabel(label, fontsize=8)
@@ -72,7 +72,7 @@ def motion_plot_png(model: MotionModel, clock: RowClock, cuts=()) -> bytes:
         for k in cuts:
             ax.axvline(clock.frame_times[k + 1], color="#b03a2e", linewidth=0.8, linestyle="--")
     axes[-1].set_xlabel("time (s)", fontsize=8)
-    axes[0].set_title("solved camera motion (dashed: cuts)", fontsize=9)
+    axes[0].set_title(f"solved camera motion, {model.kind.summary()} (dashed: cuts)", fontsize=9)
     return _png(fig)
 
 
@@ -131,6 +131,7 @@ def report_html(result, content: ReportContent) -> str:
         ("line delay", f"{clock.line_delay * 1e6:.3f} µs per row"),
         ("reference line", f"{content.reference_line} (the instant each corrected frame shows)"),
         ("border", content.border),
+        ("motion model", model.kind.summary() + (f" — {model.model_reason}" if model.model_reason else "")),
         ("shots", f"{len(model.segments)} ({len(model.cuts)} cut(s))"),
         ("unmeasured frame pairs", str(len(model.unmeasured_pairs))),
         ("tracks kept by the fit", f"{model.inlier_fraction * 100:.0f} %"),

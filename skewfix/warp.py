@@ -1,9 +1,10 @@
 """Warp maps from the motion model, and remapping of decoded planes.
 
-For an output pixel ``p`` of frame ``k`` (the global-shutter view at the
-reference instant ``t_ref``) the world point is ``q = X(t_ref) + S(t_ref)^-1 (p - c)``.
-The source row ``ys`` that saw it satisfies ``ys = y_image(q, t(k, ys))`` — a
-fixed point found in three iterations — and the source column follows. The
+Written once for every motion model (`skewfix.models`). For an output pixel
+``p`` of frame ``k`` (the global-shutter view at the reference instant
+``t_ref``) the world point ``q`` seen at ``p`` at ``t_ref`` is found; the
+source row ``ys`` that saw it satisfies ``ys = y_image(q, t(k, ys))`` — a
+root found by Newton's method to a tolerance — and the source column follows. The
 inverse warp (adding a rolling shutter to a clean image) needs no iteration:
 row ``y`` of the output is read at ``t(k, y)``.
 
@@ -21,6 +22,7 @@ from functools import lru_cache
 import cv2
 import numpy as np
 
+from skewfix.errors import RuntimeProblem
 from skewfix.motion import MotionModel
 from skewfix.rowclock import RowClock
 
@@ -119,36 +121,70 @@ def _zoom_about_centre(px, py, width, height, zoom):
     return cx + (px - cx) / zoom, cy + (py - cy) / zoom
 
 
+#: a correction map's source rows are solved to this many pixels
+ROW_TOLERANCE_PX = 1e-3
+MAX_ROW_ITERATIONS = 30
+
+
 def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
-                   zoom: float = 1.0, step: int = GRID_STEP, iterations: int = 3) -> WarpMap:
-    """Map that turns rolling-shutter frame ``k`` into the global-shutter view at its reference row."""
+                   zoom: float = 1.0, step: int = GRID_STEP, label: int | None = None) -> WarpMap:
+    """Map that turns rolling-shutter frame ``k`` into the global-shutter view at its reference row.
+
+    For each output sample the world point seen at ``t_ref`` is found, then the source
+    row ``ys`` that saw it, the root of ``g(ys) = y_image(world, t(k, ys)) - ys``, by
+    Newton's method to `ROW_TOLERANCE_PX`. ``g`` falls monotonically (a unique source row)
+    while the picture moves vertically by less than a frame height per readout; where it
+    does not, the frame cannot be corrected and a `RuntimeProblem` says so (``label`` is
+    the frame number to name in it).
+    """
     w, h = model.width, model.height
     gx, gy = coarse_grid(w, h, step)
     px, py = _zoom_about_centre(gx, gy, w, h, zoom) if zoom != 1.0 else (gx, gy)
     seg = model.segment_for(k)
     t_ref = float(clock.reference_time(k, reference_line))
-    qx, qy = model.world_from_image(seg, np.float64(t_ref), px, py)  # one instant for the whole frame
+    world = model.world_from_image(seg, np.float64(t_ref), px, py)  # one instant for the whole frame
     # the source rows lie near the frame: tabulate the curves over its readout and a frame's
     # height either side (rows further out are evaluated exactly)
     t_a, t_b = (float(clock.row_time(k, y)) for y in (-h, 2.0 * h))
     table = seg.tabulated(min(t_a, t_b), max(t_a, t_b), samples=513)
+    kind = model.kind
     ys = py.copy()
-    for _ in range(iterations):
-        ts = clock.row_time(k, ys)  # rows past the edges extrapolate the clock smoothly
-        xs, ys = model.image_from_world(table, ts, qx, qy)
+    xs, y_seen = kind.to_image(table.evaluate(clock.row_time(k, ys)), world)
+    for _ in range(MAX_ROW_ITERATIONS):
+        g = y_seen - ys
+        if clock.readout == 0 or not np.any(np.abs(g) > ROW_TOLERANCE_PX):
+            break
+        # d y_image / d ys through the row clock, by a one-row difference
+        _, y_next = kind.to_image(table.evaluate(clock.row_time(k, ys + 1.0)), world)
+        slope = (y_next - y_seen) - 1.0
+        if np.any(slope >= -1e-3):
+            frame = k if label is None else label
+            raise RuntimeProblem(
+                f"frame {frame}: the picture moves vertically by more than a frame height per readout, "
+                "so no source row is unique and the frame cannot be corrected; check the readout and "
+                "the line order")
+        ys = ys - g / slope
+        xs, y_seen = kind.to_image(table.evaluate(clock.row_time(k, ys)), world)
+    xs, ys = _finite(xs), _finite(y_seen)
     return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
+
+
+def _finite(values: np.ndarray) -> np.ndarray:
+    """Samples with no image (a direction behind the camera) are sent far outside the frame."""
+    return np.where(np.isfinite(values), values, -1e5)
 
 
 def reskew_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
                step: int = GRID_STEP) -> WarpMap:
-    """Map that puts the rolling shutter back: samples a clean frame at ``t_ref``."""
+    """Map that puts the rolling shutter back: row ``y`` of the output samples the clean
+    frame (the view at ``t_ref``) where the world seen by that row at ``t(k, y)`` lay."""
     w, h = model.width, model.height
     gx, gy = coarse_grid(w, h, step)
     seg = model.segment_for(k)
     t_ref = float(clock.reference_time(k, reference_line))
-    t_row = clock.row_time(k, gy)
-    qx, qy = model.world_from_image(seg, t_row, gx, gy)
-    xs, ys = model.image_from_world(seg, np.full(gx.shape, t_ref), qx, qy)
+    world = model.world_from_image(seg, clock.row_time(k, gy), gx, gy)
+    xs, ys = model.image_from_world(seg, np.full(gx.shape, t_ref), world)
+    xs, ys = _finite(xs), _finite(ys)
     return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
 
 

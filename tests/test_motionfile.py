@@ -12,7 +12,7 @@ import pytest
 from skewfix.decode import VideoInfo
 from skewfix.errors import InputError
 from skewfix.motion import MotionModel, MotionSegment
-from skewfix.motionfile import (CSV_COLUMNS, FORMAT_NAME, FORMAT_VERSION, load_motion, save_motion,
+from skewfix.motionfile import (FORMAT_NAME, FORMAT_VERSION, csv_columns, load_motion, save_motion,
                                 save_motion_csv)
 from skewfix.rowclock import RowClock, frame_times_from_rate
 
@@ -63,7 +63,8 @@ def test_round_trip_is_exact(saved):
 
 def test_schema_has_format_name_version_and_documented_keys(saved):
     doc = json.loads(saved[0].read_text())
-    assert doc["format"] == FORMAT_NAME == "skewfix-motion" and doc["version"] == FORMAT_VERSION == 1
+    assert doc["format"] == FORMAT_NAME == "skewfix-motion" and doc["version"] == FORMAT_VERSION == 2
+    assert doc["model"] == {"kind": "similarity"}
     assert doc["source"]["frame_rate"] == "24000/1001"
     assert set(doc["timing"]) == {"readout_s", "line_order", "reference_line", "frame_times_s"}
     seg = doc["segments"][0]
@@ -79,7 +80,9 @@ def rewrite(path, change):
 
 
 @pytest.mark.parametrize("change,needle", [
-    (lambda d: d.update(version=2), "version 2 is newer"),
+    (lambda d: d.update(version=3), "version 3 is newer"),
+    (lambda d: d["model"].update(kind="warp-drive"), "'model.kind' must be one of"),
+    (lambda d: d["model"].update(focal_length_px=900), "parameters the similarity model does not take"),
     (lambda d: d.update(version="1"), "'version' must be a whole number"),
     (lambda d: d.update(format="something-else"), "'format' is not 'skewfix-motion'"),
     (lambda d: d["timing"].pop("readout_s"), "missing 'timing.readout_s'"),
@@ -122,7 +125,7 @@ def steady_pan_model(v: float, clock: RowClock) -> MotionModel:
 
 @pytest.mark.parametrize("readout", [0.0, 0.005, 0.010, 0.020])
 def test_csv_skew_grows_linearly_with_readout(tmp_path, readout):
-    # Fact of the trade (and DESIGN.md): a pan at v px/s slants verticals by v * readout / H
+    # Fact of the trade: a pan at v px/s slants verticals by v * readout / H
     # px per row, so the bottom row (read (H-1)/H of the readout later) sits
     # v * readout * (H-1) / H px left of the top row; a global shutter (readout 0) shows none.
     v, n = 600.0, 6
@@ -132,7 +135,9 @@ def test_csv_skew_grows_linearly_with_readout(tmp_path, readout):
     np.testing.assert_allclose(model.segments[0].evaluate(t)[0], v * t, atol=1e-9)
     path = save_motion_csv(tmp_path / "m.csv", model, clock, "middle")
     rows = list(csv.DictReader(path.open()))
-    assert tuple(rows[0]) == CSV_COLUMNS and len(rows) == n
+    assert tuple(rows[0]) == csv_columns(model) == (
+        "frame", "time_s", "reference_time_s", "pan_x_px", "pan_y_px", "roll_deg", "zoom", "skew_x_px",
+        "skew_y_px") and len(rows) == n
     for k, row in enumerate(rows):
         assert int(row["frame"]) == k
         assert float(row["time_s"]) == pytest.approx(k / 25)
@@ -142,3 +147,14 @@ def test_csv_skew_grows_linearly_with_readout(tmp_path, readout):
         assert float(row["zoom"]) == pytest.approx(1.0) and float(row["roll_deg"]) == pytest.approx(0.0)
         assert float(row["skew_x_px"]) == pytest.approx(-v * readout * (H - 1) / H, abs=1e-3)
         assert float(row["skew_y_px"]) == pytest.approx(0.0, abs=1e-6)
+
+
+def test_version_1_files_still_load_as_the_similarity(saved):
+    """A version-1 file (no 'model', always the four similarity curves) reads as before."""
+    path = saved[0]
+    model_v2, *_ = load_motion(path)
+    rewrite(path, lambda d: (d.update(version=1), d.pop("model")))
+    model_v1, clock, _, meta = load_motion(path)
+    assert meta["version"] == 1 and model_v1.kind.name == "similarity"
+    for a, b in zip(model_v1.segments, model_v2.segments):
+        np.testing.assert_array_equal(a.coefficients, b.coefficients)
