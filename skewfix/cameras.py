@@ -367,7 +367,7 @@ def camera_resolver(name: str, line_order: str | None):
     base = f"saved camera '{camera.name}'"
     origin = f"{base} (measured at {camera.mode_text()}{order_note})"
 
-    def resolver(analysis):
+    def resolver(analysis, kind=None):
         info = analysis.info
         differs = mode_differences(camera, info)
         if differs:

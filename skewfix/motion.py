@@ -100,6 +100,41 @@ class TabulatedSegment:
         return np.stack([np.interp(t, self.times, v) for v in self.values])
 
 
+class ShotCurves:
+    """One shot's curves put together from consecutive fits on a shared knot grid.
+
+    A streamed clip is fitted in overlapping windows whose knot grids share
+    ``origin`` and ``spacing`` and whose gauge is carried from one window to
+    the next (`fit_motion`'s ``anchors``). Each window then hands over the
+    coefficients from the start of the frames it is responsible for, so the
+    shot's curves are one spline with no jump at the window borders.
+    """
+
+    def __init__(self, first_frame: int, origin: float, spacing: float):
+        self.first_frame = self.last_frame = first_frame
+        self.origin, self.spacing = float(origin), float(spacing)
+        self.base = 0  # global knot index of coefficients[:, 0]
+        self.coefficients: np.ndarray | None = None
+
+    def _index(self, t: float) -> int:
+        return int(np.floor((t - self.origin) / self.spacing + 1e-9))
+
+    def add(self, seg: MotionSegment, t_from: float, last_frame: int) -> None:
+        """Take ``seg``'s coefficients for times from ``t_from`` on (frames up to ``last_frame``)."""
+        offset = int(round((seg.knot_start - self.origin) / self.spacing))
+        if self.coefficients is None:
+            self.base, self.coefficients = offset, seg.coefficients.copy()
+        else:
+            start = max(self._index(t_from), offset, self.base)
+            keep = self.coefficients[:, :start - self.base]
+            self.coefficients = np.concatenate([keep, seg.coefficients[:, start - offset:]], axis=1)
+        self.last_frame = last_frame
+
+    def segment(self) -> MotionSegment:
+        return MotionSegment(self.first_frame, self.last_frame, self.origin + self.base * self.spacing,
+                             self.spacing, self.coefficients)
+
+
 def default_kind(width: int, height: int) -> MotionKind:
     return make_kind("similarity", width, height)
 

@@ -19,7 +19,7 @@ import threading
 import time
 from collections import deque
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from fractions import Fraction
 from typing import Callable
 
@@ -28,7 +28,9 @@ import numpy as np
 from skewfix.buffers import PlanePool
 from skewfix.decode import VideoInfo, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.motion import FitSettings, MotionModel, MotionSegment, PairObservations, fit_motion, load_solver
+from skewfix.models.choice import LensSpec, ModelChoice, choose_model
+from skewfix.motion import (FitSettings, MotionModel, MotionSegment, PairObservations, ShotCurves, fit_motion,
+                            load_solver)
 from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import WarpMap, correction_map, crop_zoom, remap_plane, reskew_map
@@ -110,18 +112,44 @@ def analyse(path: str, fps: Fraction | None = None, tracker: TrackerSettings | N
 
 
 def solve(analysis: Analysis, readout: float, line_order: str = "top-down",
-          settings: FitSettings | None = None, times: StageTimes | None = None) -> tuple[RowClock, MotionModel]:
-    """Fit the motion curves for the given readout; returns the row clock and the model."""
+          settings: FitSettings | None = None, times: StageTimes | None = None,
+          choice: ModelChoice | None = None) -> tuple[RowClock, MotionModel]:
+    """Fit the motion curves for the given readout (with the chosen model, else the
+    settings'); returns the row clock and the model."""
     t0 = time.perf_counter()
+    clock = analysis_clock(analysis, readout, line_order)
+    settings = settings or FitSettings()
+    if choice is not None:
+        settings = replace(settings, kind=choice.kind)
+    model = fit_motion(analysis.pairs, clock, analysis.info.width, settings)
+    if choice is not None:
+        model.model_reason = choice.reason
+    if times is not None:
+        times.fit += time.perf_counter() - t0
+    return clock, model
+
+
+def analysis_clock(analysis: Analysis, readout: float, line_order: str) -> RowClock:
+    """The analysed clip's row clock, refusing a readout longer than its frame interval."""
     clock = RowClock(analysis.frame_times, analysis.info.height, readout, line_order)
     try:
         clock.check_readout_fits(analysis.info.frame_interval)
     except UsageProblem as exc:
         raise UsageProblem(f"{analysis.info.path}: {exc}") from None
-    model = fit_motion(analysis.pairs, clock, analysis.info.width, settings)
-    if times is not None:
-        times.fit += time.perf_counter() - t0
-    return clock, model
+    return clock
+
+
+def choose_for_analysis(analysis: Analysis, request: str, lens: LensSpec, readout: float, line_order: str,
+                        settings: FitSettings | None = None) -> ModelChoice:
+    """`skewfix.models.choice.choose_model` on an analysed clip at the given readout; a
+    focal length that cannot be measured is refused naming the clip."""
+    from skewfix.errors import MeasurementRefused
+
+    clock = analysis_clock(analysis, readout, line_order)
+    try:
+        return choose_model(request, analysis.pairs, clock, analysis.info.width, lens, settings)
+    except MeasurementRefused as exc:
+        raise MeasurementRefused(f"{analysis.info.path}: {exc}") from None
 
 
 def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
@@ -228,6 +256,7 @@ FIRST_WINDOW = 8  # frames in the first fitted window (later ones double up to t
 # 16 keeps a 240-frame 1080p fix within a few per cent of a 60-frame one (a 60-frame clip
 # already reaches the steady look-ahead), for a few per cent more fitting than 32.
 MAX_WINDOW = 16
+DECIDE_FRAMES = 24  # frames whose tracks choose the motion model of a streamed clip
 MARGIN = 4  # frames of context fitted on each side of a window (the spline needs a frame or two)
 
 
@@ -250,14 +279,28 @@ class StreamingWarper(FrameWarper):
 
     Each frame is mapped with exactly one window's fit; the correction depends
     only on the motion *within* that frame, so window boundaries leave no seam.
+    The windows share one knot grid and each carries the gauge of the one
+    before, so every shot's solved motion is one continuous spline
+    (`skewfix.motion.ShotCurves`), as the motion file and report show it.
+
+    A model other than the plain similarity (``model_request`` "auto" or
+    "rotation") is chosen once, from the tracks of the first `DECIDE_FRAMES`
+    frames (fewer for big frames: the look-ahead bounds them), before the
+    first window is fitted.
     """
 
     def __init__(self, info: VideoInfo, readout: float, line_order: str, settings: RenderSettings,
                  fit: FitSettings | None = None, tracker: TrackerSettings | None = None,
-                 window: int | None = None, margin: int | None = None, times: StageTimes | None = None):
+                 window: int | None = None, margin: int | None = None, times: StageTimes | None = None,
+                 model_request: str = "similarity", lens: LensSpec | None = None):
         self.info, self.settings, self.zoom = info, settings, 1.0
         self.readout, self.line_order = readout, line_order
         self.fit_settings = fit or FitSettings()
+        self.model_request, self.lens = model_request, lens or LensSpec()
+        self.choice: ModelChoice | None = None
+        if model_request == "similarity" or self.fit_settings.kind is not None:
+            kind = self.fit_settings.kind_for(info.width, info.height)
+            self.choice = ModelChoice(kind, "asked for" if model_request == "similarity" else "given", {})
         self.tracker = PairTracker(tracker)
         auto_window, auto_margin = window_for(info)
         self.window = window or auto_window
@@ -277,10 +320,11 @@ class StreamingWarper(FrameWarper):
         self._fitted_until = 0
         self._fit_error: BaseException | None = None
         self._windows: list[tuple[int, int, int, MotionModel, RowClock]] = []
-        self.segments = []
+        self.shots: list[ShotCurves] = []
         self.cuts: list[int] = []
         self.unmeasured: list[int] = []
         self.inliers: list[float] = []
+        self.decide_frames = min(DECIDE_FRAMES, self.lookahead_limit - 1)
         self._fitter = threading.Thread(target=self._fit_loop, name="skewfix-fit", daemon=True)
         self._fitter.start()
 
@@ -335,17 +379,58 @@ class StreamingWarper(FrameWarper):
             load_solver()  # the solver's import overlaps the first frames' decoding
             while True:
                 with self._cond:
-                    while (not self._closed
-                           and self._observed < self._fitted_until + self.window_from(self._fitted_until) + self.margin):
+                    need = self._fitted_until + self.window_from(self._fitted_until) + self.margin
+                    if self.choice is None:
+                        need = max(need, self.decide_frames)
+                    while not self._closed and self._observed < need:
                         self._cond.wait()
                     observed = self._observed
                     if self._cancelled or self._fitted_until >= observed:
                         return
+                if self.choice is None:
+                    self._choose_model(observed)
                 self._fit_next(observed)
         except BaseException as exc:  # noqa: BLE001 - reported to the warp thread
             with self._cond:
                 self._fit_error = exc
                 self._cond.notify_all()
+
+    def _choose_model(self, observed: int) -> None:
+        """Pick the motion model from the first frames' tracks (see the class docstring)."""
+        from skewfix.errors import MeasurementRefused
+
+        with self._cond:
+            times = np.asarray(self.frame_times[:observed])
+            pairs = [p for k, p in self._pairs.items() if k < observed - 1]
+        clock = RowClock(times, self.info.height, self.readout, self.line_order)
+        try:
+            self.choice = choose_model(self.model_request, pairs, clock, self.info.width, self.lens,
+                                       self.fit_settings)
+        except MeasurementRefused as exc:
+            raise MeasurementRefused(f"{self.info.path}: {exc}") from None
+        self.fit_settings = replace(self.fit_settings, kind=self.choice.kind)
+
+    def _knot_settings(self, times: np.ndarray) -> FitSettings:
+        """The fit settings with the clip's one knot grid, fixed by the first window."""
+        s = self.fit_settings
+        if s.knot_spacing is None:
+            interval = self.info.frame_interval or (float(np.median(np.diff(times))) if len(times) > 1 else 0.04)
+            self.fit_settings = s = replace(s, knot_spacing=interval / s.knots_per_frame,
+                                            knot_origin=float(times[0]) - interval)
+        return s
+
+    def _anchors(self, lo: int, a: int, local_cuts: list[int]) -> dict[int, np.ndarray]:
+        """Gauge values carried over for the window's shots that began before frame ``a``."""
+        anchors = {}
+        starts = [0] + [k + 1 for k in local_cuts]
+        for s in starts:
+            f = s + lo
+            if f >= a or not self.shots:
+                continue
+            shot = self.shots[-1]
+            if shot.first_frame <= f <= shot.last_frame:
+                anchors[s] = shot.segment().evaluate(np.array([self.frame_times[f]]))[:, 0]
+        return anchors
 
     def _fit_next(self, observed: int) -> None:
         t0 = time.perf_counter()
@@ -357,21 +442,28 @@ class StreamingWarper(FrameWarper):
         with self._cond:
             hi = min(self._observed, b + self.margin)
             times = np.asarray(self.frame_times[lo:hi])
-            pairs = [PairObservations(p.k - lo, p.p0, p.p1, p.cut) for k, p in self._pairs.items()
+            all_times = self.frame_times
+            pairs = [PairObservations(p.k - lo, p.p0, p.p1, p.cut, p.ids, p.method) for k, p in self._pairs.items()
                      if lo <= k < hi - 1]
             for k in [k for k in self._pairs if k < b - self.margin]:
                 del self._pairs[k]  # bounded memory: old tracks are no longer needed
+        settings = self._knot_settings(times)
         clock = RowClock(times, self.info.height, self.readout, self.line_order)
-        model = fit_motion(pairs, clock, self.info.width, self.fit_settings)
-        segments = []
+        anchors = self._anchors(lo, a, sorted(p.k for p in pairs if p.cut))
+        model = fit_motion(pairs, clock, self.info.width, settings, anchors=anchors)
+        model.model_reason = self.choice.reason
         for seg in model.segments:  # keep the part this window is responsible for
             first, last = max(seg.first_frame + lo, a), min(seg.last_frame + lo, b - 1)
-            if first <= last:
-                segments.append(MotionSegment(first, last, seg.knot_start, seg.knot_spacing, seg.coefficients))
+            if first > last:
+                continue
+            continues = (self.shots and self.shots[-1].last_frame == first - 1
+                         and seg.first_frame + lo < first)  # the shot began before this window's part
+            if not continues:
+                self.shots.append(ShotCurves(first, settings.knot_origin, settings.knot_spacing))
+            self.shots[-1].add(seg, float(all_times[first]), last)
         with self._cond:
             self.inliers.append(model.inlier_fraction)
             self._windows.append((a, b, lo, model, clock))
-            self.segments += segments
             self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
             self.unmeasured += [k + lo for k in model.unmeasured_pairs if a <= k + lo < b]
             self._fitted_until = b
@@ -406,11 +498,13 @@ class StreamingWarper(FrameWarper):
             self._windows = [w for w in self._windows if w[1] > k]
 
     def whole_model(self) -> tuple[RowClock, MotionModel]:
-        """The clip's motion as one model (one segment per window or shot)."""
+        """The clip's motion as one model (one continuous segment per shot)."""
         clock = RowClock(np.asarray(self.frame_times), self.info.height, self.readout, self.line_order)
-        model = MotionModel(self.info.width, self.info.height, sorted(self.segments, key=lambda s: s.first_frame),
+        kind = self.choice.kind if self.choice else None
+        model = MotionModel(self.info.width, self.info.height, [shot.segment() for shot in self.shots],
                             unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts),
-                            inlier_fraction=float(np.mean(self.inliers)) if self.inliers else 0.0)
+                            inlier_fraction=float(np.mean(self.inliers)) if self.inliers else 0.0, kind=kind,
+                            model_reason=self.choice.reason if self.choice else "")
         return clock, model
 
 
@@ -574,6 +668,8 @@ class FixOptions:
     tracker: TrackerSettings = field(default_factory=TrackerSettings)
     threads: int | None = None
     interpolation: str = "cubic"
+    model: str = "auto"  # "auto", "similarity" or "rotation" (`skewfix.models.choice`)
+    lens: LensSpec = field(default_factory=LensSpec)
 
 
 @dataclass
@@ -595,8 +691,9 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
              on_frame=None, readout_resolver=None, sink_factory=None) -> FixResult:
     """Remove the rolling shutter from INPUT and write OUTPUT whole (or not at all).
 
-    ``readout_resolver(analysis) -> (readout_s, line_order, origin)`` lets the
-    caller measure the readout from the analysis (``--readout auto``).
+    ``readout_resolver(analysis, kind) -> (readout_s, line_order, origin)`` lets the
+    caller measure the readout from the analysis (``--readout auto``) with the
+    motion model chosen for the clip.
     """
     from skewfix.encode import check_output_path
     from skewfix.memory import limit_malloc_arenas
@@ -658,15 +755,23 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
         # --readout auto and --border crop need the whole clip's motion first: analyse, then render
         analysis = analyse(input_path, options.fps, options.tracker, progress, times)
         if readout_resolver is not None:
-            readout, line_order, origin = readout_resolver(analysis)
-        clock, model = solve(analysis, readout, line_order, options.fit, times)
+            # the model is chosen at no readout, the readout measured with it, and an
+            # estimated focal length measured again at that readout
+            choice = choose_for_analysis(analysis, options.model, options.lens, 0.0, line_order, options.fit)
+            readout, line_order, origin = readout_resolver(analysis, choice.kind)
+            if getattr(choice.kind, "focal_estimated", False):
+                choice = choose_for_analysis(analysis, "rotation", options.lens, readout, line_order, options.fit)
+        else:
+            choice = choose_for_analysis(analysis, options.model, options.lens, readout, line_order, options.fit)
+        clock, model = solve(analysis, readout, line_order, options.fit, times, choice)
         warper = FrameWarper(model, clock, settings, analysis.info)
         info = analysis.info
         if warper.zoom > 1.0:
             notes.append(f"crop border: the picture is enlarged {warper.zoom:.3f}x to hide missing edges")
     else:
         info = probe_info
-        warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times)
+        warper = StreamingWarper(info, readout, line_order, settings, options.fit, options.tracker, times=times,
+                                 model_request=options.model, lens=options.lens)
         analysis = None
     report: dict = {}
     template = getattr(source, "container", None)  # the input's other streams are copied from it
@@ -701,6 +806,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     lost, errors = report.get("lost_frames", 0), report.get("decode_errors", [])
     if lost or errors:
         notes.append(f"{lost} frame(s) of the input lost (damaged file): " + "; ".join(errors[:3]))
+    notes.append(f"motion model: {model.kind.summary()}" + (f" ({model.model_reason})" if model.model_reason else ""))
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")

@@ -409,7 +409,7 @@ def preview_command(
         raise InputError(f"{clip}: has {analysis.n_frames} frames (0 to {analysis.n_frames - 1}); "
                          f"there is no frame {frame}")
     if resolver is not None:
-        seconds, order, _origin = resolver(analysis)
+        seconds, order, _origin = resolver(analysis, None)
     clock, model = solve(analysis, seconds, order)
     warper = FrameWarper(model, clock, RenderSettings(reference_line, border), analysis.info)
     before = decoded_frame_at(clip, rate, frame)

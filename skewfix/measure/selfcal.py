@@ -17,6 +17,8 @@ guessed.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from skewfix.errors import MeasurementRefused
@@ -45,8 +47,11 @@ def _thin(pairs: list[PairObservations], limit: int, seed: int = 0) -> list[Pair
     return out
 
 
-def residual_curve(pairs, frame_times, height, width, signed_readouts, settings=SEARCH_SETTINGS):
-    """Sum of squared robust residuals and count for each signed readout candidate."""
+def residual_curve(pairs, frame_times, height, width, signed_readouts, settings=SEARCH_SETTINGS, kind=None):
+    """Sum of squared robust residuals and count for each signed readout candidate
+    (with the given motion model, else the settings')."""
+    if kind is not None:
+        settings = replace(settings, kind=kind)
     sums, counts = [], []
     for r in signed_readouts:
         order = "top-down" if r >= 0 else "bottom-up"
@@ -65,8 +70,10 @@ def _parabola_vertex(x, y):
     return float(-b / (2 * a)), float(2 * a)
 
 
-def measure_motion(analysis, line_order: str | None = None, frame_interval: float | None = None) -> ReadoutEstimate:
-    """Estimate the readout from an `Analysis` of ordinary footage (method "motion")."""
+def measure_motion(analysis, line_order: str | None = None, frame_interval: float | None = None,
+                   kind=None) -> ReadoutEstimate:
+    """Estimate the readout from an `Analysis` of ordinary footage (method "motion"),
+    fitting the given motion model (`skewfix.models`; default the similarity)."""
     info = analysis.info
     times = analysis.frame_times
     interval = frame_interval or clip_frame_interval(info.frame_interval, times)
@@ -80,17 +87,17 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     lo = 0.0 if line_order == "top-down" else -interval
     hi = 0.0 if line_order == "bottom-up" else interval
     coarse = np.linspace(lo, hi, 21 if lo < 0 < hi else 13)
-    s_coarse, n_coarse = residual_curve(pairs, times, info.height, info.width, coarse)
+    s_coarse, n_coarse = residual_curve(pairs, times, info.height, info.width, coarse, kind=kind)
     i = int(np.argmin(s_coarse))
     step = coarse[1] - coarse[0]
     fine = np.linspace(max(lo, coarse[i] - 1.5 * step), min(hi, coarse[i] + 1.5 * step), 9)
-    s_fine, n_fine = residual_curve(pairs, times, info.height, info.width, fine)
+    s_fine, n_fine = residual_curve(pairs, times, info.height, info.width, fine, kind=kind)
     k = int(np.argmin(s_fine))
     fine_step = fine[1] - fine[0]
     # a last, denser look around the best fine candidate: the residual curve can be
     # lopsided, and a parabola is only a fair model of it close to the minimum
     finest = np.linspace(max(lo, fine[k] - fine_step), min(hi, fine[k] + fine_step), 7)
-    s_finest, _ = residual_curve(pairs, times, info.height, info.width, finest)
+    s_finest, _ = residual_curve(pairs, times, info.height, info.width, finest, kind=kind)
     candidates = np.concatenate([coarse, fine, finest])
     sums = np.concatenate([s_coarse, s_fine, s_finest])
     order_idx = np.argsort(candidates)
@@ -137,8 +144,8 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
 def auto_readout_resolver(line_order: str | None):
     """For ``fix --readout auto``: measure from the clip being fixed."""
 
-    def resolve(analysis):
-        est = measure_motion(analysis, line_order)
+    def resolve(analysis, kind=None):
+        est = measure_motion(analysis, line_order, kind=kind)
         order = est.line_order if est.line_order != "undetermined" else (line_order or "top-down")
         origin = (f"measured from this clip's motion: {est.readout_s * 1e3:.2f} ± "
                   f"{est.uncertainty_s * 1e3:.2f} ms")

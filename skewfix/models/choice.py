@@ -1,0 +1,252 @@
+"""Which motion model a clip needs, and its lens's focal length when nobody gave it.
+
+**Focal length from the footage.** A camera turning about its centre moves the
+edges of a wide picture faster than its middle (at 90 degrees of horizontal
+view, twice as fast at the edges for a pan); only the right focal length
+makes one rotation explain every track of a frame pair. We fit the rotation
+model for candidate focal lengths (log-spaced fields of view from 20 to 150
+degrees, then finer around the best) and take the vertex of a parabola
+through the bounded track misfit near its minimum; the uncertainty is the
+curvature's (the Laplace approximation ``var = 2 s^2 / S''``, as for the
+readout). A plain pan (or a narrow lens) leaves the misfit flat: the focal
+length is then *not observable* and we say so instead of guessing.
+
+**Model choice** (``--model auto``). The similarity is tried against the
+rotation. Without a lens given, the rotation must explain the tracks with an
+RMS misfit at least `ROTATION_GAIN_UNSEEN` times lower and its focal length
+must be observable: that is the price of its estimated focal length (the
+similarity keeps every narrow-lens clip). With a lens given, the rotation has
+fewer curves than the similarity (three against four) and is kept unless the
+similarity fits clearly better (a zoom, say).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from skewfix.errors import MeasurementRefused, UsageProblem
+from skewfix.models.base import MotionKind, make_kind
+from skewfix.models.rotation import Rotation, focal_from_equivalent_mm, focal_from_hfov
+
+MODELS = ("auto", "similarity", "rotation")
+ROTATION_GAIN_UNSEEN = 0.8  # rotation's RMS misfit must be this share of the similarity's (no lens given)
+SIMILARITY_GAIN_GIVEN = 0.9  # with a lens given, the similarity needs this share of the rotation's
+MAX_TRACKS_PER_PAIR = 120
+MAX_PAIRS = 40
+FOCAL_RELATIVE_LIMIT = 0.10  # a focal length known worse than this (1 sigma) is "not observable"
+
+
+@dataclass(frozen=True)
+class LensSpec:
+    """What the user said about the lens (any of the ways), resolved per frame size."""
+
+    hfov_deg: float | None = None
+    focal_mm_equivalent: float | None = None
+    focal_px: float | None = None
+    distortion: tuple[float, float] = (0.0, 0.0)
+
+    @property
+    def given(self) -> bool:
+        return any(v is not None for v in (self.hfov_deg, self.focal_mm_equivalent, self.focal_px))
+
+    def focal_for(self, width: int, height: int) -> float | None:
+        if self.focal_px is not None:
+            return float(self.focal_px)
+        if self.hfov_deg is not None:
+            return focal_from_hfov(width, self.hfov_deg)
+        if self.focal_mm_equivalent is not None:
+            return focal_from_equivalent_mm(width, height, self.focal_mm_equivalent)
+        return None
+
+    def rotation(self, width: int, height: int, focal_px: float | None = None, **extra) -> Rotation:
+        return Rotation(width, height, focal_px or self.focal_for(width, height), distortion=self.distortion,
+                        **extra)
+
+    def as_dict(self) -> dict:
+        return {k: v for k, v in (("hfov_deg", self.hfov_deg), ("focal_mm_equivalent", self.focal_mm_equivalent),
+                                  ("focal_px", self.focal_px)) if v is not None} | (
+            {"distortion": list(self.distortion)} if any(self.distortion) else {})
+
+
+_FOCAL = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*(mm|px)\s*$", re.IGNORECASE)
+
+
+def parse_lens(hfov: str | float | None = None, focal_length: str | None = None,
+               distortion: str | None = None) -> LensSpec:
+    """``--hfov 92``, ``--focal-length 26mm`` (35 mm equivalent) or ``1450px``,
+    ``--lens-distortion -0.12,0.03``; one-line `UsageProblem` for anything else."""
+    if hfov is not None and focal_length is not None:
+        raise UsageProblem("give the lens as --hfov or as --focal-length, not both")
+    spec = LensSpec()
+    if hfov is not None:
+        try:
+            value = float(hfov)
+        except ValueError:
+            raise UsageProblem(f"--hfov must be a horizontal field of view in degrees, not {hfov!r}") from None
+        if not 1.0 <= value < 179.0:
+            raise UsageProblem(f"--hfov must be between 1 and 179 degrees, not {hfov!r}")
+        spec = replace(spec, hfov_deg=value)
+    if focal_length is not None:
+        match = _FOCAL.match(str(focal_length))
+        if not match or float(match.group(1)) <= 0:
+            raise UsageProblem(f"--focal-length must be like 26mm (35 mm equivalent) or 1450px, not {focal_length!r}")
+        value, unit = float(match.group(1)), match.group(2).lower()
+        spec = replace(spec, **({"focal_mm_equivalent": value} if unit == "mm" else {"focal_px": value}))
+    if distortion is not None:
+        parts = [p.strip() for p in str(distortion).split(",")]
+        try:
+            values = [float(p) for p in parts]
+        except ValueError:
+            values = []
+        if len(values) not in (1, 2) or not all(math.isfinite(v) and abs(v) < 10 for v in values):
+            raise UsageProblem(f"--lens-distortion must be K1 or K1,K2 (OpenCV's radial terms), not {distortion!r}")
+        spec = replace(spec, distortion=(values[0], values[1] if len(values) > 1 else 0.0))
+    return spec
+
+
+def _sample(pairs, seed: int = 0):
+    """At most MAX_PAIRS evenly chosen pairs of at most MAX_TRACKS_PER_PAIR tracks."""
+    from skewfix.motion import PairObservations
+
+    pairs = [p for p in pairs if not p.cut and len(p.p0) >= 8]
+    if len(pairs) > MAX_PAIRS:
+        pick = np.linspace(0, len(pairs) - 1, MAX_PAIRS).round().astype(int)
+        pairs = [pairs[i] for i in pick]
+    rng = np.random.default_rng(seed)
+    out = []
+    for p in pairs:
+        if len(p.p0) > MAX_TRACKS_PER_PAIR:
+            keep = np.sort(rng.choice(len(p.p0), MAX_TRACKS_PER_PAIR, replace=False))
+            p = PairObservations(p.k, p.p0[keep], p.p1[keep], p.cut)
+        out.append(p)
+    return out
+
+
+def _misfit(pairs, clock, width, kind: MotionKind, settings) -> tuple[float, int]:
+    from skewfix.motion import fit_residual
+
+    return fit_residual(pairs, clock, width, replace(settings, kind=kind))
+
+
+@dataclass
+class FocalEstimate:
+    focal_px: float
+    uncertainty_px: float
+    misfit_px: float
+    candidates_px: np.ndarray
+    misfits: np.ndarray
+
+
+def estimate_focal(pairs, clock, width: int, lens: LensSpec, settings=None) -> FocalEstimate:
+    """The focal length (px) that lets one camera rotation explain the tracks; raises
+    `MeasurementRefused` when the footage cannot tell (see the module docstring)."""
+    from skewfix.motion import FitSettings
+
+    settings = settings or FitSettings()
+    height = clock.height
+    pairs = _sample(pairs)
+    if len(pairs) < 4:
+        raise MeasurementRefused("too few trackable frame pairs to measure the lens's focal length")
+
+    def sums(focals):
+        out, count = [], 0
+        for f in focals:
+            rms, count = _misfit(pairs, clock, width, lens.rotation(width, height, f), settings)
+            out.append(rms * rms * count)
+        return np.array(out), count
+
+    coarse = np.array([focal_from_hfov(width, a) for a in np.geomspace(150.0, 20.0, 11)])
+    s_coarse, n_obs = sums(coarse)
+    i = int(np.argmin(s_coarse))
+    lo, hi = coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)]
+    fine = np.geomspace(lo, hi, 7)
+    s_fine, _ = sums(fine)
+    focals = np.concatenate([coarse, fine])
+    totals = np.concatenate([s_coarse, s_fine])
+    order = np.argsort(focals)
+    focals, totals = focals[order], totals[order]
+    j = int(np.argmin(totals))
+    near = np.abs(np.log(focals / focals[j])) <= 1.01 * np.log(fine[1] / fine[0])
+    x = np.log(focals[near])
+    a, b, _ = np.polyfit(x, totals[near], 2) if near.sum() >= 3 else (0.0, 0.0, 0.0)
+    s_min = float(totals[j])
+    best_log = -b / (2 * a) if a > 0 else math.log(focals[j])
+    best = float(math.exp(np.clip(best_log, x.min(), x.max())))
+    sigma2 = s_min / max(n_obs - 3 * len(pairs) * 4, 1)
+    # tracks of one pair share its errors: inflate by the tracks per pair, as for the readout
+    log_sd = math.sqrt(2 * sigma2 / (2 * a)) * math.sqrt(max(n_obs / len(pairs), 1.0)) / 4.0 if a > 0 else math.inf
+    uncertainty = best * log_sd
+    depth = (float(np.max(s_coarse)) - s_min) / max(s_min, 1e-12)
+    at_edge = j in (0, len(focals) - 1)
+    if at_edge or not math.isfinite(uncertainty) or uncertainty > FOCAL_RELATIVE_LIMIT * best or depth < 0.05:
+        raise MeasurementRefused(
+            "the footage does not reveal the lens's focal length (a plain pan, a narrow lens or too little "
+            "turning); give it with --hfov or --focal-length, or use --model similarity")
+    rms = math.sqrt(s_min / max(n_obs, 1))
+    return FocalEstimate(best, uncertainty, rms, focals, totals)
+
+
+@dataclass
+class ModelChoice:
+    kind: MotionKind
+    reason: str
+    misfits_px: dict
+
+
+def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, settings=None) -> ModelChoice:
+    """The motion model for a clip: ``request`` is "auto", "similarity" or "rotation"."""
+    from skewfix.motion import FitSettings
+
+    if request not in MODELS:
+        raise UsageProblem(f"--model must be one of {', '.join(MODELS)}, not {request!r}")
+    settings = settings or FitSettings()
+    height = clock.height
+    similarity = make_kind("similarity", width, height)
+    if request == "similarity":
+        return ModelChoice(similarity, "asked for (--model similarity)", {})
+    if request == "rotation" and lens.given:
+        return ModelChoice(lens.rotation(width, height), "asked for (--model rotation), lens given", {})
+    sample = _sample(pairs)
+    if request == "rotation":
+        est = estimate_focal(sample, clock, width, lens, settings)  # refuses when not observable
+        kind = lens.rotation(width, height, est.focal_px, focal_estimated=True, focal_uncertainty_px=est.uncertainty_px)
+        return ModelChoice(kind, f"asked for (--model rotation); focal length measured from the footage: "
+                                 f"{est.focal_px:.0f} ± {est.uncertainty_px:.0f} px", {"rotation": est.misfit_px})
+    if len(sample) < 4:
+        return ModelChoice(similarity, "too few tracked frame pairs to compare models", {})
+    sim_rms, _ = _misfit(sample, clock, width, similarity, settings)
+    if lens.given:
+        rotation = lens.rotation(width, height)
+        rot_rms, _ = _misfit(sample, clock, width, rotation, settings)
+        misfits = {"similarity": sim_rms, "rotation": rot_rms}
+        if sim_rms < SIMILARITY_GAIN_GIVEN * rot_rms:
+            return ModelChoice(similarity, f"the similarity fits better ({sim_rms:.2f} px against the lens's "
+                                           f"rotation {rot_rms:.2f} px RMS)", misfits)
+        return ModelChoice(rotation, f"the lens is given and its rotation fits ({rot_rms:.2f} px RMS against "
+                                     f"{sim_rms:.2f} px for the similarity)", misfits)
+    # no lens: a quick look at a few fields of view before paying for the focal search
+    quick = {a: _misfit(sample, clock, width, lens.rotation(width, height, focal_from_hfov(width, a)), settings)[0]
+             for a in (60.0, 90.0, 120.0)}
+    best_quick = min(quick.values())
+    misfits = {"similarity": sim_rms, **{f"rotation at {a:.0f} deg": v for a, v in quick.items()}}
+    if best_quick > ROTATION_GAIN_UNSEEN * sim_rms:
+        return ModelChoice(similarity, f"no sign of a wide lens turning: the similarity fits as well "
+                                       f"({sim_rms:.2f} px RMS; a rotation at best {best_quick:.2f} px)", misfits)
+    try:
+        est = estimate_focal(sample, clock, width, lens, settings)
+    except MeasurementRefused:
+        return ModelChoice(similarity, "the focal length could not be measured from the footage, so the "
+                                       "similarity is kept", misfits)
+    rotation = lens.rotation(width, height, est.focal_px, focal_estimated=True, focal_uncertainty_px=est.uncertainty_px)
+    misfits["rotation"] = est.misfit_px
+    if est.misfit_px > ROTATION_GAIN_UNSEEN * sim_rms:
+        return ModelChoice(similarity, f"the rotation fits only a little better ({est.misfit_px:.2f} against "
+                                       f"{sim_rms:.2f} px RMS), not enough for an estimated lens", misfits)
+    return ModelChoice(rotation, f"a wide lens turning: the rotation fits {est.misfit_px:.2f} px RMS against "
+                                 f"{sim_rms:.2f} px for the similarity; focal length measured from the footage, "
+                                 f"{est.focal_px:.0f} ± {est.uncertainty_px:.0f} px "
+                                 f"({rotation.lens.hfov_deg(width):.1f}° horizontal view)", misfits)
