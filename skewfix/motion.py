@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from skewfix.background import choose_background
 from skewfix.models import MotionKind, make_kind
 from skewfix.rowclock import RowClock
 
@@ -153,6 +154,8 @@ class MotionModel:
     kind: MotionKind | None = None
     #: why this model was used (for notes, reports and measure --json)
     model_reason: str = ""
+    #: what the fit found doubtful (shown as notes)
+    warnings: list[str] = field(default_factory=list)
 
     def __post_init__(self):
         if self.kind is None:
@@ -243,12 +246,16 @@ def fit_motion(
     width: int,
     settings: FitSettings | None = None,
     anchors: dict[int, np.ndarray] | None = None,
+    prior=None,
 ) -> MotionModel:
     """Fit the clip's motion curves from timed tracks (one spline per shot).
 
-    ``anchors`` maps a shot's first frame to the gauge curves' values at that
-    frame's start time (a streamed clip carries its gauge from one window to
-    the next); without one, the gauge curves start at zero.
+    The tracks that follow the static world are chosen consistently over each
+    shot first (`skewfix.background.choose_background`); ``prior(k, p0) -> p1``
+    predicts the world's tracks of pair ``k`` from an earlier fit (a streamed
+    clip's previous window). ``anchors`` maps a shot's first frame to the gauge
+    curves' values at that frame's start time (a streamed clip carries its
+    gauge from one window to the next); without one, the gauge curves start at zero.
     """
     settings = settings or FitSettings()
     kind = settings.kind_for(width, clock.height)
@@ -260,8 +267,10 @@ def fit_motion(
     for first, last in shots:
         shot_pairs = [p for p in pairs if first <= p.k < last and not p.cut]
         anchor = None if anchors is None else anchors.get(first)
-        seg, w_sum, n_obs = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor)
+        seg, w_sum, n_obs, warning = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor, prior)
         model.segments.append(seg)
+        if warning:
+            model.warnings.append(f"frames {first}-{last}: {warning}")
         inl += w_sum
         tot += n_obs
     model.unmeasured_pairs = sorted(
@@ -330,7 +339,8 @@ def _spline_from_samples(times, values, seg: MotionSegment, penalty_one, weight:
     return np.stack([spla.spsolve(lhs, basis.T @ v) for v in values])
 
 
-def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings: FitSettings, anchor=None):
+def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings: FitSettings, anchor=None,
+                 prior=None):
     sp, spla = load_solver()
     t_lo, spacing, n_coef = knot_grid(clock, first, last, settings)
     n_curves = kind.n_curves
@@ -341,10 +351,11 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
 
     usable = [p for p in pairs if len(p.p0) >= settings.min_tracks]
     if not usable:
-        return seg, 0.0, 0
+        return seg, 0.0, 0, ""
     tracks = _Track(usable, clock, seg)
     n = len(tracks)
-    w0 = np.concatenate([_initial_weights(kind, p) for p in usable])
+    background = choose_background(kind, usable, prior)
+    w0 = np.concatenate(background.weights)
     active = list(kind.active)
     n_act = len(active)
     scales = kind.curve_scales()
@@ -390,6 +401,8 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
             good = (w0 > 0) & ~bad
             scale = max(1.4826 * np.median(norm[good]) if np.any(good) else np.median(norm), 0.25)
             weights = 1.0 / (1.0 + (norm / (2.5 * scale)) ** 2)
+            # tracks not taken for the world count only once the fit itself agrees with them
+            weights[(w0 == 0) & (norm > 3.0 * scale)] = 0.0
         weights[bad] = 0.0
 
         # Sparse Jacobian: each residual touches 4 coefficients of each curve at t0 and at t1.
@@ -418,15 +431,7 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
         moved = np.max(np.abs(step.reshape(n_act, n_coef)) * scales[active][:, None])
         if moved < 1e-4 and it > 2:
             break
-    return seg, float(np.sum(weights > 0.5)), n
-
-
-def _initial_weights(kind: MotionKind, pair: PairObservations) -> np.ndarray:
-    """0/1 weights from the model's one-pair RANSAC (all ones when it cannot tell)."""
-    w = kind.pair_inliers(pair.p0, pair.p1)
-    if w is None or w.sum() < 4:
-        return np.ones(len(pair.p0))
-    return w
+    return seg, float(np.sum(weights > 0.5)), n, background.warning
 
 
 def transfer_errors(model: MotionModel, pairs, clock: RowClock, settings: FitSettings) -> np.ndarray:
