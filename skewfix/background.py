@@ -160,7 +160,7 @@ def choose_background(kind, pairs, prior=None) -> BackgroundChoice:
     support_mean = float(np.mean(shares)) if shares else 0.0
     warning = ""
     if pairs and (support_mean < WEAK_SUPPORT or jumps):
-        where = f"; it jumps after frame(s) {', '.join(map(str, jumps[:5]))}" if jumps else ""
+        where = f"; it jumps {len(jumps)} time(s)" if jumps else ""
         warning = (f"no motion consistent over time explains most tracks (on average {support_mean * 100:.0f} % "
                    f"of them{where}): a large subject may have been taken for the world, check the result")
     return BackgroundChoice(weights, support_mean, jumps, warning)

@@ -247,6 +247,7 @@ def fit_motion(
     settings: FitSettings | None = None,
     anchors: dict[int, np.ndarray] | None = None,
     prior=None,
+    frame_offset: int = 0,
 ) -> MotionModel:
     """Fit the clip's motion curves from timed tracks (one spline per shot).
 
@@ -256,6 +257,7 @@ def fit_motion(
     clip's previous window). ``anchors`` maps a shot's first frame to the gauge
     curves' values at that frame's start time (a streamed clip carries its
     gauge from one window to the next); without one, the gauge curves start at zero.
+    ``frame_offset`` is added to frame numbers in warnings (a window's first frame).
     """
     settings = settings or FitSettings()
     kind = settings.kind_for(width, clock.height)
@@ -270,7 +272,7 @@ def fit_motion(
         seg, w_sum, n_obs, warning = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor, prior)
         model.segments.append(seg)
         if warning:
-            model.warnings.append(f"frames {first}-{last}: {warning}")
+            model.warnings.append(f"frames {first + frame_offset}-{last + frame_offset}: {warning}")
         inl += w_sum
         tot += n_obs
     model.unmeasured_pairs = sorted(

@@ -321,6 +321,7 @@ class StreamingWarper(FrameWarper):
         self._fit_error: BaseException | None = None
         self._windows: list[tuple[int, int, int, MotionModel, RowClock]] = []
         self.shots: list[ShotCurves] = []
+        self.warnings: list[str] = []
         self.cuts: list[int] = []
         self.unmeasured: list[int] = []
         self.inliers: list[float] = []
@@ -432,6 +433,33 @@ class StreamingWarper(FrameWarper):
                 anchors[s] = shot.segment().evaluate(np.array([self.frame_times[f]]))[:, 0]
         return anchors
 
+    def _prior(self, lo: int, a: int):
+        """``prior(k, p0) -> p1``: where the previous window's motion takes the tracks of
+        pair ``k`` (window-local) for the pairs it fitted, so the two agree on the world."""
+        if not self._windows:
+            return None
+        _, prev_b, prev_lo, prev_model, prev_clock = self._windows[-1]
+
+        def prior(k_local: int, p0: np.ndarray):
+            k = k_local + lo - prev_lo  # the previous window's numbering
+            if k_local + lo >= a or k < 0 or k + 1 >= len(prev_clock.frame_times):
+                return None
+            try:
+                seg = prev_model.segment_for(k)
+            except IndexError:
+                return None
+            if seg.last_frame <= k:  # a cut right after frame k
+                return None
+            kind = prev_model.kind
+            v0 = seg.evaluate(prev_clock.row_time(k, p0[:, 1]))
+            p1 = p0.copy()
+            for _ in range(2):  # the row that sees it in frame k+1 gives its time
+                x, y = kind.transfer(v0, p0, seg.evaluate(prev_clock.row_time(k + 1, p1[:, 1])))
+                p1 = np.stack([x, y], 1)
+            return p1
+
+        return prior
+
     def _fit_next(self, observed: int) -> None:
         t0 = time.perf_counter()
         a = self._fitted_until
@@ -450,7 +478,8 @@ class StreamingWarper(FrameWarper):
         settings = self._knot_settings(times)
         clock = RowClock(times, self.info.height, self.readout, self.line_order)
         anchors = self._anchors(lo, a, sorted(p.k for p in pairs if p.cut))
-        model = fit_motion(pairs, clock, self.info.width, settings, anchors=anchors)
+        model = fit_motion(pairs, clock, self.info.width, settings, anchors=anchors, prior=self._prior(lo, a),
+                           frame_offset=lo)
         model.model_reason = self.choice.reason
         for seg in model.segments:  # keep the part this window is responsible for
             first, last = max(seg.first_frame + lo, a), min(seg.last_frame + lo, b - 1)
@@ -463,6 +492,8 @@ class StreamingWarper(FrameWarper):
             self.shots[-1].add(seg, float(all_times[first]), last)
         with self._cond:
             self.inliers.append(model.inlier_fraction)
+            if model.warnings and len(self.warnings) < 3:  # the first few are enough to act on
+                self.warnings += model.warnings[:3 - len(self.warnings)]
             self._windows.append((a, b, lo, model, clock))
             self.cuts += [k + lo for k in model.cuts if a <= k + lo < b]
             self.unmeasured += [k + lo for k in model.unmeasured_pairs if a <= k + lo < b]
@@ -504,7 +535,7 @@ class StreamingWarper(FrameWarper):
         model = MotionModel(self.info.width, self.info.height, [shot.segment() for shot in self.shots],
                             unmeasured_pairs=sorted(self.unmeasured), cuts=sorted(self.cuts),
                             inlier_fraction=float(np.mean(self.inliers)) if self.inliers else 0.0, kind=kind,
-                            model_reason=self.choice.reason if self.choice else "")
+                            model_reason=self.choice.reason if self.choice else "", warnings=list(self.warnings))
         return clock, model
 
 
@@ -807,6 +838,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     if lost or errors:
         notes.append(f"{lost} frame(s) of the input lost (damaged file): " + "; ".join(errors[:3]))
     notes.append(f"motion model: {model.kind.summary()}" + (f" ({model.model_reason})" if model.model_reason else ""))
+    notes.extend(model.warnings)
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")
