@@ -154,9 +154,12 @@ def choose_background(kind, pairs, prior=None) -> BackgroundChoice:
             w = hs[j].mask.astype(np.float64)
         weights.append(w)
         shares.append(hs[j].mask.mean())
-        if i > 0 and _jump(hyps[i - 1][path[i - 1]].displacement, hs[j].displacement,
-                           max(1, ks[i] - ks[i - 1])) > 1.0:
-            jumps.append(p.k)
+        if i > 0:
+            # a jump matters when the chain took it although another motion of the pair went on smoothly
+            before, gap = hyps[i - 1][path[i - 1]].displacement, max(1, ks[i] - ks[i - 1])
+            if _jump(before, hs[j].displacement, gap) > 1.0 and any(
+                    _jump(before, h.displacement, gap) <= 1.0 for m, h in enumerate(hs) if m != j):
+                jumps.append(p.k)
     support_mean = float(np.mean(shares)) if shares else 0.0
     warning = ""
     if pairs and (support_mean < WEAK_SUPPORT or jumps):

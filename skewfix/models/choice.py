@@ -171,17 +171,18 @@ def estimate_focal(pairs, clock, width: int, lens: LensSpec, settings=None) -> F
     focals, totals = focals[order], totals[order]
     j = int(np.argmin(totals))
     near = np.abs(np.log(focals / focals[j])) <= 1.01 * np.log(fine[1] / fine[0])
-    x = np.log(focals[near])
-    a, b, _ = np.polyfit(x, totals[near], 2) if near.sum() >= 3 else (0.0, 0.0, 0.0)
+    x0 = math.log(focals[j])
+    x = np.log(focals[near]) - x0  # centred: a well-conditioned parabola
+    a, b, _ = np.polyfit(x, totals[near], 2) if len(np.unique(x)) >= 3 else (0.0, 0.0, 0.0)
     s_min = float(totals[j])
-    best_log = -b / (2 * a) if a > 0 else math.log(focals[j])
-    best = float(math.exp(np.clip(best_log, x.min(), x.max())))
+    best_log = x0 + (-b / (2 * a) if a > 0 else 0.0)
+    best = float(math.exp(np.clip(best_log, x0 + x.min(), x0 + x.max())))
     sigma2 = s_min / max(n_obs - 3 * len(pairs) * 4, 1)
     # tracks of one pair share its errors: inflate by the tracks per pair, as for the readout
     log_sd = math.sqrt(2 * sigma2 / (2 * a)) * math.sqrt(max(n_obs / len(pairs), 1.0)) / 4.0 if a > 0 else math.inf
     uncertainty = best * log_sd
     depth = (float(np.max(s_coarse)) - s_min) / max(s_min, 1e-12)
-    at_edge = j in (0, len(focals) - 1)
+    at_edge = focals[j] <= focals[0] * (1 + 1e-9) or focals[j] >= focals[-1] * (1 - 1e-9)  # the search's ends
     if at_edge or not math.isfinite(uncertainty) or uncertainty > FOCAL_RELATIVE_LIMIT * best or depth < 0.05:
         raise MeasurementRefused(
             "the footage does not reveal the lens's focal length (a plain pan, a narrow lens or too little "
