@@ -156,6 +156,8 @@ class MotionModel:
     model_reason: str = ""
     #: what the fit found doubtful (shown as notes)
     warnings: list[str] = field(default_factory=list)
+    #: per fitted pair k, which of its tracks were taken for the static world (not saved)
+    background: dict[int, np.ndarray] = field(default_factory=dict, repr=False)
 
     def __post_init__(self):
         if self.kind is None:
@@ -269,8 +271,10 @@ def fit_motion(
     for first, last in shots:
         shot_pairs = [p for p in pairs if first <= p.k < last and not p.cut]
         anchor = None if anchors is None else anchors.get(first)
-        seg, w_sum, n_obs, warning = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor, prior)
+        seg, w_sum, n_obs, warning, masks = _fit_segment(shot_pairs, clock, kind, first, last, settings, anchor,
+                                                         prior)
         model.segments.append(seg)
+        model.background.update(masks)
         if warning:
             model.warnings.append(f"frames {first + frame_offset}-{last + frame_offset}: {warning}")
         inl += w_sum
@@ -353,7 +357,7 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
 
     usable = [p for p in pairs if len(p.p0) >= settings.min_tracks]
     if not usable:
-        return seg, 0.0, 0, ""
+        return seg, 0.0, 0, "", {}
     tracks = _Track(usable, clock, seg)
     n = len(tracks)
     background = choose_background(kind, usable, prior)
@@ -433,20 +437,27 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
         moved = np.max(np.abs(step.reshape(n_act, n_coef)) * scales[active][:, None])
         if moved < 1e-4 and it > 2:
             break
-    return seg, float(np.sum(weights > 0.5)), n, background.warning
+    masks = dict(zip((p.k for p in usable), (w > 0 for w in background.weights)))
+    return seg, float(np.sum(weights > 0.5)), n, background.warning, masks
 
 
-def transfer_errors(model: MotionModel, pairs, clock: RowClock, settings: FitSettings) -> np.ndarray:
-    """Per track, how far (px) the fitted motion carries p0 from where p1 was seen."""
+def transfer_errors(model: MotionModel, pairs, clock: RowClock, settings: FitSettings,
+                    background_only: bool = False) -> np.ndarray:
+    """Per track, how far (px) the fitted motion carries p0 from where p1 was seen
+    (only the tracks the fit took for the static world, if ``background_only``)."""
     out = []
     for p in pairs:
         if p.cut or len(p.p0) < settings.min_tracks:
             continue
+        p0, p1 = p.p0, p.p1
+        mask = model.background.get(p.k) if background_only else None
+        if mask is not None and mask.any():
+            p0, p1 = p0[mask], p1[mask]
         seg = model.segment_for(p.k)
-        v0 = seg.evaluate(clock.row_time(p.k, p.p0[:, 1]))
-        v1 = seg.evaluate(clock.row_time(p.k + 1, p.p1[:, 1]))
-        x, y = model.kind.transfer(v0, p.p0, v1)
-        e = np.hypot(x - p.p1[:, 0], y - p.p1[:, 1])
+        v0 = seg.evaluate(clock.row_time(p.k, p0[:, 1]))
+        v1 = seg.evaluate(clock.row_time(p.k + 1, p1[:, 1]))
+        x, y = model.kind.transfer(v0, p0, v1)
+        e = np.hypot(x - p1[:, 0], y - p1[:, 1])
         out.append(np.where(np.isfinite(e), e, np.inf))
     return np.concatenate(out) if out else np.zeros(0)
 
@@ -454,8 +465,9 @@ def transfer_errors(model: MotionModel, pairs, clock: RowClock, settings: FitSet
 def fit_residual(pairs, clock: RowClock, width: int, settings: FitSettings, bound: float = 3.0) -> tuple[float, int]:
     """Robust RMS misfit (px) of the tracks to a fitted motion (self-calibration, model choice).
 
-    Each track's transfer error counts up to ``bound`` px: outliers count but cannot dominate.
+    Only the tracks taken for the static world count (a subject's are left out, the same set
+    whatever the readout), each up to ``bound`` px: outliers count but cannot dominate.
     """
     model = fit_motion(pairs, clock, width, settings)
-    e = np.minimum(transfer_errors(model, pairs, clock, settings), bound)
+    e = np.minimum(transfer_errors(model, pairs, clock, settings, background_only=True), bound)
     return (float(np.sqrt(np.mean(e * e))) if e.size else float("nan")), int(e.size)
