@@ -12,14 +12,18 @@ A **clip list** is a plain text file, one clip per line::
     A001_C004.mov  A001_C004_fixed.mov  readout=21.3ms
     "card 2/A002_C001.mp4"  line-order=bottom-up crf=14
     /mnt/plates/sh010.mov  sh010/plate.mov  codec=prores
+    B002_C007.mp4  readout=phone-4k30  focal-length=26mm  model=rotation
 
 Each line is ``INPUT [OUTPUT] [setting=value ...]``, split like a shell line
 (quote a path that holds spaces). A relative INPUT is relative to the list's
 own folder; a relative OUTPUT is relative to ``--out``; without OUTPUT the clip
 keeps its file name inside ``--out``. The settings are the ``fix`` options of
 the same name: ``readout``, ``line-order``, ``reference-line``, ``border``,
-``codec``, ``crf`` and ``preset``; on the command line they are the defaults
-for every clip, on a line they override them for that clip. A word that looks
+``codec``, ``crf``, ``preset``, ``model``, ``hfov``, ``focal-length`` and
+``lens-distortion``; on the command line they are the defaults for every
+clip, on a line they override them for that clip (a line's ``hfov`` or
+``focal-length`` replaces the other one given on the command line, as the
+two are one lens). A word that looks
 like ``name=value`` is read as a setting; write ``./a=b.mov`` for a file whose
 name has an ``=`` in it. Mistakes in the list stop the batch before any clip
 starts, with the line number.
@@ -57,7 +61,10 @@ from skewfix.sequence import is_pattern
 VIDEO_SUFFIXES = frozenset({
     ".mov", ".mp4", ".m4v", ".mkv", ".mxf", ".avi", ".mts", ".m2ts", ".ts", ".webm", ".mpg", ".mpeg",
 })
-SETTINGS = ("readout", "line-order", "reference-line", "border", "codec", "crf", "preset")
+SETTINGS = ("readout", "line-order", "reference-line", "border", "codec", "crf", "preset", "model", "hfov",
+            "focal-length", "lens-distortion")
+LENS_SETTINGS = ("hfov", "focal-length", "lens-distortion")  # parse_lens's three arguments, in order
+FOCAL_SETTINGS = ("hfov", "focal-length")  # two ways of giving one focal length
 LEDGER_NAME = ".skewfix-batch-ledger.jsonl"
 SCHEDULER_TIMEOUT_S = 10
 MESSAGE_LIMIT = 300
@@ -94,11 +101,12 @@ class ClipOutcome:
 def check_setting(name: str, value: str, where: str) -> str:
     """The setting's value, normalised, or a `UsageProblem` saying ``where`` it went wrong."""
     from skewfix.encode import CODECS
+    from skewfix.models.choice import MODELS
     from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
     from skewfix.warp import BORDERS
 
     allowed = {"line-order": LINE_ORDERS, "reference-line": REFERENCE_LINES, "border": BORDERS,
-               "codec": tuple(CODECS)}
+               "codec": tuple(CODECS), "model": MODELS}
     value = value.strip()
     if name == "codec":
         value = value.lower()
@@ -108,6 +116,8 @@ def check_setting(name: str, value: str, where: str) -> str:
         raise UsageProblem(f"{where}: crf must be a whole number from 0 to 51, not {value!r}")
     if name == "preset" and not value.isalnum():
         raise UsageProblem(f"{where}: preset must be one word such as veryfast or medium, not {value!r}")
+    if name in LENS_SETTINGS:
+        lens_from_settings({name: value}, where)
     if name == "readout":
         from skewfix.cameras import readout_plan
 
@@ -118,6 +128,23 @@ def check_setting(name: str, value: str, where: str) -> str:
         except ImportError as exc:
             raise UsageProblem(f"{where}: readout {value!r} cannot be used in this installation ({exc})") from None
     return value
+
+
+def lens_from_settings(settings: dict[str, str], where: str):
+    """The lens settings of one clip as a `skewfix.models.choice.LensSpec` (None when it has
+    none); a `UsageProblem` saying ``where`` and naming the setting otherwise."""
+    from skewfix.models.choice import parse_lens
+
+    values = [settings.get(name) for name in LENS_SETTINGS]
+    if all(v is None for v in values):
+        return None
+    try:
+        return parse_lens(*values)
+    except UsageProblem as exc:
+        text = str(exc)
+        for name in LENS_SETTINGS:
+            text = text.replace(f"--{name}", name)
+        raise UsageProblem(f"{where}: {text}") from None
 
 
 def split_line(text: str, where: str) -> tuple[list[str], dict[str, str]]:
@@ -203,11 +230,19 @@ def collect_jobs(source: str, out_dir: Path, defaults: dict[str, str]) -> list[C
         raise InputError(f"{source}: no such folder or clip list")
     defaults = {name: check_setting(name, value, f"--{name}") for name, value in defaults.items()
                 if value is not None}
+    if any(name in defaults for name in LENS_SETTINGS):
+        from skewfix.models.choice import parse_lens
+
+        parse_lens(*(defaults.get(name) for name in LENS_SETTINGS))  # the command line's lens, its option names
     jobs = folder_jobs(where, out_dir) if where.is_dir() else read_clip_list(where, out_dir)
     seen: dict[str, ClipJob] = {}
     for job in jobs:
-        job.settings = {**defaults, **job.settings}
+        inherited = defaults
+        if any(name in job.settings for name in FOCAL_SETTINGS):  # the line gives the focal length its way
+            inherited = {k: v for k, v in defaults.items() if k not in FOCAL_SETTINGS}
+        job.settings = {**inherited, **job.settings}
         place = f"{source}, line {job.line}" if job.line else job.name
+        lens_from_settings(job.settings, place)
         if "readout" not in job.settings:
             raise UsageProblem(f"{place}: no readout (give --readout, or readout=... on the line)")
         if job.output in seen:
@@ -277,17 +312,17 @@ def run_clip(job: ClipJob, replace: bool = False) -> ClipOutcome:
     """Correct one clip; every problem becomes a failed outcome with a one-line message."""
     start = time.perf_counter()
     try:
-        from skewfix.cameras import readout_plan
+        from skewfix.cameras import plan_readout
         from skewfix.pipeline import FixOptions, fix_clip
 
         s = job.settings
-        seconds, order, origin, resolver = readout_plan(s["readout"], s.get("line-order"))
-        options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
+        plan = plan_readout(s["readout"], s.get("line-order"), lens_from_settings(s, job.name))
+        options = FixOptions(readout=plan.seconds or 0.0, readout_origin=plan.origin, line_order=plan.line_order,
                              reference_line=s.get("reference-line", "middle"), border=s.get("border", "edge"),
                              codec=s.get("codec"), crf=int(s["crf"]) if "crf" in s else None,
-                             preset=s.get("preset"), force=replace)
+                             preset=s.get("preset"), force=replace, model=s.get("model", "auto"), lens=plan.lens)
         size, mtime = input_stamp(job.input) if os.path.isfile(job.input) else (None, None)
-        result = fix_clip(job.input, job.output, options, readout_resolver=resolver)
+        result = fix_clip(job.input, job.output, options, readout_resolver=plan.resolver)
     except SkewfixError as exc:
         return ClipOutcome(job.name, job.output, "failed", seconds=time.perf_counter() - start,
                            message=_one_line(str(exc)))

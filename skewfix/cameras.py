@@ -27,6 +27,13 @@ The file format ("skewfix camera v1")::
     clip: wall_100hz.mp4
     note: bands (nearly) still: a smooth background was fitted per frame
 
+and, when the readout was measured with the rotation model (``measure
+--method motion`` through a lens, estimated or given), its lens::
+
+    focal_length_px: 1450.2
+    hfov_deg: 105.9
+    lens_distortion: -0.12,0.03
+
 * The first line that is neither blank nor a comment must be the header
   ``skewfix camera v1``. Lines starting with ``#`` are comments.
 * Every other line is ``key: value`` (the key in lower case, the value is the
@@ -40,6 +47,13 @@ The file format ("skewfix camera v1")::
   ``measured`` (ISO 8601 date and time) and ``clip`` (the test clip's file
   name) describe the measurement. The file's name, not its ``name:`` line,
   is the camera's name.
+* The lens lines are optional and describe the measured mode's stored frame:
+  ``focal_length_px`` (pinhole focal length in pixels, positive),
+  ``hfov_deg`` (the horizontal field of view it gives, degrees) and
+  ``lens_distortion`` (Brown–Conrady radial terms ``k1,k2`` in OpenCV's
+  convention). ``fix --readout NAME`` uses the focal length (else the field
+  of view) and the distortion as the lens unless lens options are given.
+  Files without them (older ones) load as before.
 """
 
 from __future__ import annotations
@@ -85,6 +99,37 @@ class SavedCamera:
     clip: str | None = None
     notes: list[str] = field(default_factory=list)
     path: Path | None = None
+    focal_length_px: float | None = None
+    hfov_deg: float | None = None
+    lens_distortion: tuple[float, float] | None = None
+
+    @property
+    def has_lens(self) -> bool:
+        return self.focal_length_px is not None or self.hfov_deg is not None
+
+    def lens_spec(self):
+        """The saved lens as a `skewfix.models.choice.LensSpec` (None when none was saved)."""
+        from skewfix.models.choice import LensSpec
+
+        if not self.has_lens and not self.lens_distortion:
+            return None
+        distortion = tuple(self.lens_distortion) if self.lens_distortion else (0.0, 0.0)
+        if self.focal_length_px is not None:
+            return LensSpec(focal_px=self.focal_length_px, distortion=distortion)
+        return LensSpec(hfov_deg=self.hfov_deg, distortion=distortion)
+
+    def lens_text(self) -> str:
+        """``focal length 277.1 px (60.0° horizontal view), distortion k1=-0.1, k2=0`` or ``-``."""
+        parts = []
+        if self.focal_length_px is not None:
+            parts.append(f"focal length {self.focal_length_px:.1f} px"
+                         + (f" ({self.hfov_deg:.1f}° horizontal view)" if self.hfov_deg is not None else ""))
+        elif self.hfov_deg is not None:
+            parts.append(f"{self.hfov_deg:.1f}° horizontal view")
+        if self.lens_distortion and any(self.lens_distortion):
+            k1, k2 = self.lens_distortion
+            parts.append(f"radial distortion k1={k1:g}, k2={k2:g}")
+        return ", ".join(parts) or "-"
 
     def mode_text(self) -> str:
         """``3840x2160, 25 fps`` (what is known of the measured mode)."""
@@ -159,6 +204,26 @@ def _fraction(text: str) -> Fraction:
     return rate
 
 
+def _positive(text: str, what: str, below: float | None = None) -> float:
+    value = _number(text, what)
+    if value <= 0 or (below is not None and value >= below):
+        raise ValueError(f"{what} must be more than 0" + (f" and less than {below:g}" if below else "")
+                         + f": {text!r}")
+    return value
+
+
+def _distortion(text: str) -> tuple[float, float]:
+    """``k1,k2`` (or ``k1``): Brown–Conrady radial terms, signed."""
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        values = [float(p) for p in parts]
+    except ValueError:
+        values = []
+    if len(values) not in (1, 2) or not all(math.isfinite(v) for v in values):
+        raise ValueError(f"lens_distortion must be k1,k2 (two numbers), not {text!r}")
+    return values[0], values[1] if len(values) > 1 else 0.0
+
+
 def parse_camera(text: str, name: str) -> SavedCamera:
     """Read the text of a camera file; ValueError (with the line number) if it is malformed."""
     values: dict[str, str] = {}
@@ -208,6 +273,9 @@ def parse_camera(text: str, name: str) -> SavedCamera:
         measured=get("measured") or None,
         clip=get("clip") or None,
         notes=notes,
+        focal_length_px=_positive(get("focal_length_px"), "focal_length_px") if get("focal_length_px") else None,
+        hfov_deg=_positive(get("hfov_deg"), "hfov_deg", below=180.0) if get("hfov_deg") else None,
+        lens_distortion=_distortion(get("lens_distortion")) if get("lens_distortion") else None,
     )
 
 
@@ -235,6 +303,13 @@ def format_camera(camera: SavedCamera) -> str:
         value = getattr(camera, key)
         if value:
             lines.append(f"{key}: {one_line(value)}")
+    if camera.focal_length_px is not None:
+        lines.append(f"focal_length_px: {camera.focal_length_px:.4f}")
+    if camera.hfov_deg is not None:
+        lines.append(f"hfov_deg: {camera.hfov_deg:.4f}")
+    if camera.lens_distortion is not None:
+        k1, k2 = camera.lens_distortion
+        lines.append(f"lens_distortion: {k1!r},{k2!r}")
     lines.extend(f"note: {one_line(note)}" for note in camera.notes if one_line(note))
     return "\n".join(lines) + "\n"
 
@@ -242,7 +317,9 @@ def format_camera(camera: SavedCamera) -> str:
 def save_camera(name: str, estimate, info, clip: str | None = None) -> Path:
     """Save a `ReadoutEstimate` measured on a clip with `VideoInfo` ``info`` as NAME.
 
-    Replaces a camera of the same name. Returns the file written.
+    Replaces a camera of the same name. Returns the file written. When the
+    measurement fitted a lens (the rotation model, ``estimate.model``), the lens
+    is kept too.
     """
     name = check_name(name)
     if not (math.isfinite(estimate.readout_s) and estimate.readout_s >= 0):
@@ -264,6 +341,15 @@ def save_camera(name: str, estimate, info, clip: str | None = None) -> Path:
         clip=clip or (Path(str(info.path)).name if getattr(info, "path", None) else None),
         notes=list(estimate.notes),
     )
+    model = getattr(estimate, "model", None)
+    if model is not None and model.focal_length_px is not None:
+        camera.focal_length_px = float(model.focal_length_px)
+        camera.hfov_deg = float(model.hfov_deg) if model.hfov_deg is not None else None
+        camera.lens_distortion = tuple(model.distortion) if model.distortion else (0.0, 0.0)
+        how = ("given to the measurement, not measured" if model.focal_given else
+               "measured from the footage" + (f", ± {model.focal_uncertainty_px:.1f} px"
+                                              if model.focal_uncertainty_px is not None else ""))
+        camera.notes.append(f"lens: the focal length was {how}")
     path = camera_path(name)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
@@ -342,13 +428,37 @@ def _clip_mode(info) -> str:
     return f"{mode} at {rate_text(info.rate)} fps" if info.rate else f"{mode} (frame rate not stated)"
 
 
-def camera_resolver(name: str, line_order: str | None):
-    """``fix --readout NAME``: (readout_s, line order, origin, resolver) for `readout_plan`.
+@dataclass
+class ReadoutPlan:
+    """What ``--readout`` (with the lens options) comes to before the clip is read.
 
-    ``resolver(analysis) -> (readout_s, line_order, origin)`` compares the
-    clip's resolution and frame rate with the mode the camera was measured in
-    and says so in the origin text when they differ.
+    ``seconds`` is None when the readout is measured (``auto``); ``resolver``
+    (``resolver(analysis, kind) -> (readout_s, line_order, origin)``) is set for
+    ``auto`` and saved cameras; ``lens`` is the `LensSpec` to fit with: the
+    options' when any was given, else a saved camera's, else an empty one.
     """
+
+    seconds: float | None
+    line_order: str
+    origin: str
+    resolver: object | None
+    lens: object
+
+    def as_tuple(self):
+        return self.seconds, self.line_order, self.origin, self.resolver
+
+
+def _lens_note(camera: SavedCamera, lens) -> str:
+    if not camera.has_lens:
+        return ""
+    if lens is not None:
+        return "; the lens options override its saved lens"
+    return f"; its saved lens: {camera.lens_text()}"
+
+
+def _camera_plan(name: str, line_order: str | None, lens=None) -> ReadoutPlan:
+    from skewfix.models.choice import LensSpec
+
     try:
         camera = load_camera(name)
     except UsageProblem:
@@ -364,21 +474,57 @@ def camera_resolver(name: str, line_order: str | None):
     else:
         order = "top-down"
         order_note = "; its line order was not measured, top-down assumed (give --line-order)"
+    lens_note = _lens_note(camera, lens)
+    use_lens = lens if lens is not None else (camera.lens_spec() or LensSpec())
     base = f"saved camera '{camera.name}'"
-    origin = f"{base} (measured at {camera.mode_text()}{order_note})"
+    origin = f"{base} (measured at {camera.mode_text()}{order_note}{lens_note})"
 
     def resolver(analysis, kind=None):
         info = analysis.info
         differs = mode_differences(camera, info)
         if differs:
+            check = "the readout and the lens" if lens_note and lens is None else "the readout"
             text = (f"{base} (measured at {camera.mode_text()}; this clip is {_clip_mode(info)}: "
                     f"{' and '.join(differs)} differ{'s' if len(differs) == 1 else ''}, "
-                    f"check the readout{order_note})")
+                    f"check {check}{order_note}{lens_note})")
         else:
             text = origin
         return camera.readout_s, order, text
 
-    return camera.readout_s, order, origin, resolver
+    return ReadoutPlan(camera.readout_s, order, origin, resolver, use_lens)
+
+
+def camera_resolver(name: str, line_order: str | None, lens=None):
+    """``fix --readout NAME``: (readout_s, line order, origin, resolver) for `readout_plan`.
+
+    ``resolver(analysis) -> (readout_s, line_order, origin)`` compares the
+    clip's resolution and frame rate with the mode the camera was measured in
+    and says so in the origin text when they differ. ``lens`` is the lens the
+    options gave (None: none), named in the origin when it overrides a saved one.
+    """
+    return _camera_plan(name, line_order, lens).as_tuple()
+
+
+def plan_readout(text: str, line_order: str | None, lens=None) -> ReadoutPlan:
+    """``--readout`` and the lens options together (see `ReadoutPlan`).
+
+    ``lens`` is the `LensSpec` the lens options gave, or None when none was
+    given: then a saved camera's lens, if it has one, is used.
+    """
+    from skewfix.models.choice import LensSpec
+
+    if text.strip().lower() == "auto":
+        from skewfix.measure.selfcal import auto_readout_resolver
+
+        return ReadoutPlan(None, line_order or "top-down", "measured from this clip's motion",
+                           auto_readout_resolver(line_order), lens or LensSpec())
+    try:
+        return ReadoutPlan(parse_duration(text), line_order or "top-down", "given on the command line", None,
+                           lens or LensSpec())
+    except UsageProblem:
+        if not _LOOKS_LIKE_NAME.match(text.strip()):  # a mistyped duration: say so
+            raise
+    return _camera_plan(text.strip(), line_order, lens)
 
 
 def readout_plan(text: str, line_order: str | None):
@@ -387,13 +533,4 @@ def readout_plan(text: str, line_order: str | None):
     Accepts a duration, ``auto`` (measured from the clip's own motion) or the
     name of a saved camera.
     """
-    if text.strip().lower() == "auto":
-        from skewfix.measure.selfcal import auto_readout_resolver
-
-        return None, line_order or "top-down", "measured from this clip's motion", auto_readout_resolver(line_order)
-    try:
-        return parse_duration(text), line_order or "top-down", "given on the command line", None
-    except UsageProblem:
-        if not _LOOKS_LIKE_NAME.match(text.strip()):  # a mistyped duration: say so
-            raise
-    return camera_resolver(text.strip(), line_order)
+    return plan_readout(text, line_order).as_tuple()

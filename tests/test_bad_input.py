@@ -164,6 +164,15 @@ CASES = [
             ("--codec", "vp7"), None),
     BadCase("reskew-crf-out-of-range", ("reskew", "a/x.mp4", "out.mp4", "--motion", "m.json", "--crf", "-1"), 2,
             ("--crf", "-1"), None),
+    # the lens: a field of view is an angle between 1 and 179 degrees, a focal length needs
+    # its unit, and one lens is given one way (skewfix.models.choice.parse_lens; common practice)
+    BadCase("hfov-zero", FIX + ("a/x.mp4", "out.mp4", "--hfov", "0") + TEN_MS, 2, ("--hfov", "'0'"), None),
+    BadCase("focal-length-without-unit", FIX + ("a/x.mp4", "out.mp4", "--focal-length", "26") + TEN_MS, 2,
+            ("--focal-length", "26mm"), None),
+    BadCase("hfov-and-focal-length", FIX + ("a/x.mp4", "out.mp4", "--hfov", "60", "--focal-length", "26mm")
+            + TEN_MS, 2, ("--hfov", "--focal-length", "not both"), None),
+    BadCase("unknown-model", ("measure", "a/x.mp4", "--method", "motion", "--model", "wobble", "--quiet"), 2,
+            ("--model", "wobble"), None),
     BadCase("pattern-without-files", FIX + ("plate.%04d.png", "out.mp4", "--fps", "24") + TEN_MS, 1,
             ("no files match",), "plate.%04d.png"),
     BadCase("flicker-no-bands", ("measure", "wall.mp4", "--method", "flicker", "--light-hz", "100", "--quiet"), 1,
@@ -220,7 +229,7 @@ def test_negative_readouts_are_refused_as_negative(value, unit):
 
 
 def test_debug_shows_the_traceback(tmp_path):
-    # the one exception to "never a traceback" (issue 6): --debug asks for it
+    # the one exception to "never a traceback": --debug asks for it
     code, _, err = run_cli("--debug", "fix", "nope.mp4", "out.mp4", "--readout", "10ms", cwd=tmp_path)
     assert code != 0 and "Traceback" in err and "no such file" in err
 

@@ -159,6 +159,11 @@ def test_clip_list_resolves_paths_and_applies_per_clip_settings(clips, tmp_path)
     (["a.mp4 readout=1ms x.mp4"], 1, "INPUT and OUTPUT come first"),
     (["a.mp4 out.mp4", "b.mp4 out.mp4"], 2, "as does a.mp4"),
     (["a.%04d.tif"], 1, "image sequences"),
+    (["a.mp4 model=wobble"], 1, "model must be one of auto, similarity, rotation"),
+    (["a.mp4", "b.mp4 hfov=0"], 2, "hfov must be between 1 and 179"),
+    (["a.mp4 focal-length=26"], 1, "focal-length must be like 26mm"),
+    (["a.mp4 lens-distortion=a,b"], 1, "lens-distortion must be K1 or K1,K2"),
+    (["a.mp4 hfov=60 focal-length=26mm"], 1, "not both"),
 ])
 def test_clip_list_mistakes_name_their_line(tmp_path, lines, number, words):
     listing = tmp_path / "list.txt"
@@ -227,3 +232,32 @@ def test_batch_on_a_dask_cluster_on_loopback(clips, tmp_path, capsys):
         # the fixture rendered FRAMES frames of WIDTH x HEIGHT; common practice: a correction keeps both
         assert video_shape(out / name) == (FRAMES, WIDTH, HEIGHT)
     assert "failed  broken.mp4" in err
+
+
+def test_lens_settings_from_the_command_line_and_the_line(tmp_path):
+    listing = tmp_path / "list.txt"
+    listing.write_text("a.mp4\nb.mp4 focal-length=26mm model=rotation\nc.mp4 lens-distortion=-0.1\n")
+    jobs = collect_jobs(str(listing), tmp_path / "out", {"readout": "10ms", "hfov": "70", "model": "auto"})
+    a, b, c = (job.settings for job in jobs)
+    assert a == {"readout": "10ms", "hfov": "70", "model": "auto"}
+    # one lens, given one way: the line's focal length replaces the command line's field of view
+    assert b == {"readout": "10ms", "model": "rotation", "focal-length": "26mm"}
+    assert c == {"readout": "10ms", "hfov": "70", "model": "auto", "lens-distortion": "-0.1"}
+    with pytest.raises(UsageProblem, match="not both"):  # both on the command line: its own option names
+        collect_jobs(str(listing), tmp_path / "out", {"readout": "10ms", "hfov": "70", "focal-length": "26mm"})
+
+
+def test_model_and_lens_settings_reach_fix(clips, tmp_path):
+    import math
+
+    listing = tmp_path / "list.txt"
+    listing.write_text(f"{clips / GOOD[0]}  wide.mp4  model=rotation  hfov=90\n"
+                       f"{clips / GOOD[1]}  flat.mov  model=similarity\n")
+    out = tmp_path / "out"
+    wide, flat = run_batch(str(listing), str(out), {"readout": "10ms"})
+    assert (wide.status, flat.status) == ("done", "done"), (wide.message, flat.message)
+    # pinhole relation: a 90-degree view has f = W/2 (Hartley & Zisserman, Multiple View Geometry, sec. 6.1)
+    assert f"focal length {(WIDTH / 2) / math.tan(math.radians(45)):.1f} px (given" in wide.message
+    assert "motion model: 3-D rotation" in wide.message and "motion model: 2-D similarity" in flat.message
+    entries = [json.loads(line) for line in (out / LEDGER_NAME).read_text().splitlines()]
+    assert {"model": "rotation", "hfov": "90", "readout": "10ms"} in [e["settings"] for e in entries]

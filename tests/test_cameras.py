@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from fractions import Fraction
 from types import SimpleNamespace
@@ -15,6 +16,7 @@ from skewfix.cameras import (
     cameras_dir,
     list_cameras,
     load_camera,
+    plan_readout,
     remove_camera,
     save_camera,
 )
@@ -116,6 +118,12 @@ def test_hand_edited_file_is_read(config_dir):
     ("skewfix camera v1\nreadout_ms: 18\nreadout_ms: 19\n", "line 3"),
     ("skewfix camera v1\nreadout_ms: 18\nline_order: sideways\n", "line_order"),
     ("skewfix camera v1\nreadout_ms 18\n", "line 2"),
+    # the lens lines: a focal length and a field of view are positive, a view under 180 degrees
+    ("skewfix camera v1\nreadout_ms: 18\nfocal_length_px: -5\n", "focal_length_px"),
+    ("skewfix camera v1\nreadout_ms: 18\nfocal_length_px: 0\n", "more than 0"),
+    ("skewfix camera v1\nreadout_ms: 18\nhfov_deg: 180\n", "less than 180"),
+    ("skewfix camera v1\nreadout_ms: 18\nlens_distortion: a,b\n", "lens_distortion"),
+    ("skewfix camera v1\nreadout_ms: 18\nlens_distortion: 1,2,3\n", "lens_distortion"),
 ])
 def test_malformed_files_give_one_line(config_dir, text, problem):
     folder = config_dir / "cameras"
@@ -177,3 +185,85 @@ def test_fix_readout_plan_routes_names_to_saved_cameras():
     assert readout_plan("12.3ms", None)[0] == pytest.approx(0.0123)  # a duration stays a duration
     with pytest.raises(UsageProblem, match="not a duration or a saved camera"):
         readout_plan("rig-c", None)
+
+
+# --------------------------------------------------------------------------
+# The lens kept with a camera
+# --------------------------------------------------------------------------
+
+def lens_estimate(focal=1450.0, sigma=12.0, given=False, distortion=(-0.12, 0.03), width=3840):
+    from skewfix.measure.result import ModelUsed
+
+    est = estimate(method="motion")
+    hfov = math.degrees(2 * math.atan(width / 2 / focal))
+    est.model = ModelUsed("rotation", "a wide lens turning", "3-D rotation", focal, None if given else sigma,
+                          given, hfov, distortion)
+    return est
+
+
+def test_lens_round_trip(config_dir):
+    path = save_camera("phone-4k30", lens_estimate(), video_info())
+    text = path.read_text()
+    assert "focal_length_px: 1450.0000" in text and "lens_distortion: -0.12,0.03" in text
+    cam = load_camera("phone-4k30")
+    assert cam.focal_length_px == pytest.approx(1450.0)
+    # pinhole relation hfov = 2 atan((W/2) / f) (Hartley & Zisserman, Multiple View Geometry, sec. 6.1)
+    assert cam.hfov_deg == pytest.approx(math.degrees(2 * math.atan(1920 / 1450.0)), abs=1e-4)
+    assert cam.lens_distortion == pytest.approx((-0.12, 0.03))
+    spec = cam.lens_spec()
+    assert spec.focal_px == pytest.approx(1450.0) and spec.distortion == pytest.approx((-0.12, 0.03))
+    assert any("measured from the footage, ± 12.0 px" in note for note in cam.notes)
+    assert "focal length 1450.0 px" in cam.lens_text() and "k1=-0.12" in cam.lens_text()
+
+
+def test_a_measurement_without_a_lens_saves_none(config_dir):
+    from skewfix.measure.result import ModelUsed
+
+    est = estimate(method="motion")
+    est.model = ModelUsed("similarity", "no sign of a wide lens turning")  # the similarity has no lens
+    text = save_camera("narrow", est, video_info()).read_text()
+    assert "focal_length_px" not in text and "hfov_deg" not in text and "lens_distortion" not in text
+    cam = load_camera("narrow")
+    assert cam.focal_length_px is None and cam.lens_spec() is None and cam.lens_text() == "-"
+
+
+def test_old_camera_file_without_lens_lines_loads(config_dir):
+    folder = config_dir / "cameras"
+    folder.mkdir(parents=True)
+    (folder / "old.camera").write_text("skewfix camera v1\nname: old\nreadout_ms: 18.5\nline_order: top-down\n"
+                                       "method: flicker\nwidth: 3840\nheight: 2160\nframe_rate: 25/1\n")
+    cam = load_camera("old")
+    assert cam.readout_s == pytest.approx(0.0185)
+    assert cam.focal_length_px is None and cam.hfov_deg is None and cam.lens_distortion is None
+    assert cam.lens_spec() is None
+    plan = plan_readout("old", None)
+    assert not plan.lens.given and "lens" not in plan.origin
+
+
+def test_hand_written_field_of_view_is_a_lens(config_dir):
+    folder = config_dir / "cameras"
+    folder.mkdir(parents=True)
+    (folder / "wide.camera").write_text("skewfix camera v1\nreadout_ms: 10\nhfov_deg: 90\n")
+    spec = load_camera("wide").lens_spec()
+    # a 90-degree view puts the edge at one focal length from the centre: f = W/2 (pinhole relation)
+    assert spec.focal_for(1920, 1080) == pytest.approx(960.0)
+
+
+def test_saved_lens_is_used_unless_the_options_give_one(config_dir):
+    from skewfix.models.choice import parse_lens
+
+    save_camera("phone-4k30", lens_estimate(), video_info())
+    plan = plan_readout("phone-4k30", None)
+    assert plan.lens.focal_px == pytest.approx(1450.0) and plan.lens.distortion == pytest.approx((-0.12, 0.03))
+    assert "its saved lens: focal length 1450.0 px" in plan.origin
+    given = parse_lens(hfov="90")
+    plan = plan_readout("phone-4k30", None, given)
+    assert plan.lens == given and "the lens options override its saved lens" in plan.origin
+    # the readout itself is unchanged either way, and the mode check still names the lens
+    assert plan.seconds == pytest.approx(0.0185, abs=1e-10)
+    plan = plan_readout("phone-4k30", None)
+    text = plan.resolver(SimpleNamespace(info=video_info(1920, 1080, Fraction(25))))[2]
+    assert "resolution differs" in text and "check the readout and the lens" in text
+    # a duration or auto keep whatever lens the options gave (none: an empty one)
+    assert not plan_readout("10ms", None).lens.given
+    assert plan_readout("10ms", None, given).lens == given

@@ -70,3 +70,85 @@ def test_missing_option_is_a_usage_error(small_clip, tmp_path, capsys):
     assert main(["fix", str(small_clip), str(tmp_path / "o.mp4")]) == 2
     err = capsys.readouterr().err
     assert "--readout" in err and len(err.strip().splitlines()) == 1
+
+
+# --------------------------------------------------------------------------
+# The motion model and the lens on the command line
+# --------------------------------------------------------------------------
+
+BAD_LENS = [
+    (("--hfov", "0"), "--hfov"),
+    (("--hfov", "abc"), "--hfov"),
+    (("--focal-length", "26"), "--focal-length"),  # a focal length needs its unit: 26mm or 26px
+    (("--focal-length", "-3mm"), "--focal-length"),
+    (("--lens-distortion", "a,b"), "--lens-distortion"),
+    (("--model", "wobble"), "--model"),
+    (("--hfov", "60", "--focal-length", "26mm"), "--focal-length"),  # one lens, given one way
+]
+
+
+@pytest.mark.parametrize("args,option", BAD_LENS, ids=[" ".join(a) for a, _ in BAD_LENS])
+def test_bad_model_and_lens_options(small_clip, tmp_path, capsys, args, option):
+    # common practice: 2 for a wrong command line, one line naming the option, nothing written
+    assert main(["fix", str(small_clip), str(tmp_path / "o.mp4"), "--readout", "10ms", *args]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("skewfix: ") and option in err[0], err
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("command", [
+    ("measure", "{clip}", "--method", "motion"),
+    ("preview", "{clip}", "--readout", "10ms", "--out", "{tmp}/still.png"),
+    ("batch", "{clip}", "--out", "{tmp}/out", "--readout", "10ms"),
+])
+@pytest.mark.parametrize("args,option", [(("--hfov", "abc"), "hfov"), (("--model", "wobble"), "model"),
+                                         (("--lens-distortion", "a,b"), "lens-distortion")])
+def test_other_commands_refuse_bad_lens_options(small_clip, tmp_path, capsys, command, args, option):
+    # the same options on measure, preview and batch: exit 2, one line naming the option (common practice)
+    argv = [part.format(clip=small_clip, tmp=tmp_path) for part in command] + list(args)
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and option in err[0], err
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_help_explains_the_focal_length_forms(capsys):
+    assert main(["fix", "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.replace("│", " ").split())
+    for words in ("--model", "--hfov", "--lens-distortion", "mm is the 35 mm-equivalent figure phone makers quote"):
+        assert words in text, words
+
+
+def motion_document(path):
+    import json
+
+    return json.loads(path.read_text())
+
+
+def test_fix_with_the_similarity_writes_a_version_2_motion_file(small_clip, tmp_path, capsys):
+    out, motion = tmp_path / "o.mp4", tmp_path / "o.motion.json"
+    assert main(["fix", str(small_clip), str(out), "--readout", "20ms", "--model", "similarity",
+                 "--save-motion", str(motion), "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert out.stat().st_size > 1000
+    doc = motion_document(motion)
+    assert doc["version"] == 2 and doc["model"]["kind"] == "similarity"
+    # the pipeline's note says which model was fitted and why; fix prints every note
+    assert "note: motion model: 2-D similarity" in err and "asked for" in err
+
+
+def test_fix_with_the_rotation_and_a_field_of_view(small_clip, tmp_path, capsys):
+    import math
+
+    out, motion = tmp_path / "o.mp4", tmp_path / "o.motion.json"
+    assert main(["fix", str(small_clip), str(out), "--readout", "20ms", "--model", "rotation", "--hfov", "60",
+                 "--save-motion", str(motion), "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert out.stat().st_size > 1000
+    doc = motion_document(motion)
+    assert doc["version"] == 2 and doc["model"]["kind"] == "rotation"
+    width = doc["source"]["width"]
+    assert width == 320  # conftest's small clips
+    # pinhole relation f = (W/2) / tan(hfov/2) (Hartley & Zisserman, Multiple View Geometry, sec. 6.1)
+    assert doc["model"]["focal_length_px"] == pytest.approx((width / 2) / math.tan(math.radians(30)), rel=1e-9)
+    assert "note: motion model: 3-D rotation" in err

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
 import sys
 import types
@@ -54,7 +55,7 @@ def test_pan_measure_writes_json_plot_and_camera(clips, tmp_path, capsys, config
     assert sha256(clips["pan"]) == before  # the input is never touched
     data = json.loads(out_json.read_text())
     assert JSON_KEYS <= set(data)
-    # issue 3 target for the pan method: within 3 % of the true readout
+    # the pan method's accuracy target: within 3 % of the true readout (the renderer's truth)
     assert data["readout_ms"] == pytest.approx(READOUT * 1e3, rel=0.03)
     assert data["line_delay_us"] == pytest.approx(data["readout_ms"] * 1e3 / H)
     assert data["readout_fraction"] == pytest.approx(data["readout_ms"] / (1000 / 30))
@@ -81,11 +82,11 @@ def test_pan_measure_writes_json_plot_and_camera(clips, tmp_path, capsys, config
 
 @pytest.fixture
 def motion_refuses(monkeypatch):
-    """Stand-in for the motion method that refuses, as DESIGN.md requires on a
-    constant-velocity pan (the real method is tested in its own file)."""
+    """Stand-in for the motion method that refuses, as it must on a constant-velocity
+    pan (the real method is tested in its own file)."""
     fake = types.ModuleType("skewfix.measure.selfcal")
 
-    def measure_motion(analysis, line_order=None):
+    def measure_motion(analysis, line_order=None, kind=None):
         raise MeasurementRefused("the motion is too steady to reveal the readout")
 
     fake.measure_motion = measure_motion
@@ -202,3 +203,138 @@ def test_exposure_and_frame_range_helpers():
             parse_exposure(bad)
     assert frame_ranges([1, 2, 3, 7, 9, 10]) == "1-3, 7, 9-10"
     assert frame_ranges([5]) == "5" and frame_ranges([]) == "none"
+
+
+# --------------------------------------------------------------------------
+# The motion model in measure's output, and a lens kept with a saved camera
+# --------------------------------------------------------------------------
+
+MODEL_KEYS = {"model", "model_reason", "focal_length_px", "focal_uncertainty_px", "focal_given"}
+
+
+@pytest.fixture(scope="module")
+def whip_clip(clip_factory):
+    # a whip pan that speeds up and stops: the motion method can measure it (conftest renders
+    # it with a 20 ms readout at 30 fps)
+    return str(clip_factory("whip", READOUT, n_frames=24)[0])
+
+
+def test_motion_json_names_the_model(whip_clip, tmp_path, capsys):
+    out_json = tmp_path / "motion.json"
+    assert main(["measure", whip_clip, "--method", "motion", "--json", str(out_json)]) == 0
+    captured = capsys.readouterr()
+    data = json.loads(out_json.read_text())
+    assert JSON_KEYS | MODEL_KEYS <= set(data)
+    # the renderer's truth: a 20 ms readout (5 %: the motion method's accuracy target)
+    assert data["readout_ms"] == pytest.approx(READOUT * 1e3, rel=0.05)
+    # the clip is a flat panorama slid past the frame, which the similarity describes exactly
+    # (skewfix.synth.shutter), so auto keeps it: no focal length
+    assert data["model"] == "similarity" and data["model_reason"]
+    assert data["focal_length_px"] is None and data["focal_uncertainty_px"] is None
+    assert data["focal_given"] is False
+    model_lines = [line for line in captured.out.splitlines() if line.startswith("model ")]
+    assert len(model_lines) == 1 and "similarity" in model_lines[0]
+
+
+def test_flicker_and_pan_json_have_no_model(clips, tmp_path, capsys):
+    out_json = tmp_path / "pan.json"
+    assert main(["measure", clips["pan"], "--method", "pan", "--json", str(out_json), "--quiet"]) == 0
+    data = json.loads(out_json.read_text())
+    assert MODEL_KEYS <= set(data) and data["model"] is None and data["focal_length_px"] is None
+
+
+def test_given_lens_is_measured_with_and_saved_with_the_camera(whip_clip, tmp_path, capsys, config_dir):
+    out_json = tmp_path / "lens.json"
+    # a narrow lens (20 degrees), through which the flat pan the renderer slides past the frame
+    # looks almost the same as a turning camera, so the rotation measures the readout as well
+    assert main(["measure", whip_clip, "--method", "motion", "--model", "rotation", "--hfov", "20",
+                 "--lens-distortion", "-0.05,0.01", "--json", str(out_json), "--save-camera", "lensed"]) == 0
+    captured = capsys.readouterr()
+    data = json.loads(out_json.read_text())
+    # pinhole relation f = (W/2) / tan(hfov/2) (Hartley & Zisserman, Multiple View Geometry, sec. 6.1)
+    focal = (W / 2) / math.tan(math.radians(10))
+    assert data["model"] == "rotation" and data["focal_length_px"] == pytest.approx(focal, rel=1e-9)
+    assert data["focal_uncertainty_px"] is None and data["focal_given"] is True
+    assert data["lens_distortion"] == pytest.approx([-0.05, 0.01])
+    assert f"rotation, focal length {focal:.1f} px given" in captured.out
+    saved = (config_dir / "cameras" / "lensed.camera").read_text()
+    assert f"focal_length_px: {focal:.4f}" in saved and "hfov_deg: 20.0000" in saved
+    assert "lens_distortion: -0.05,0.01" in saved
+    assert main(["cameras", "show", "lensed"]) == 0
+    shown = capsys.readouterr().out
+    assert f"focal length {focal:.1f} px (20.0° horizontal view)" in shown and "k1=-0.05, k2=0.01" in shown
+
+    # fix --readout NAME uses the saved lens when no lens option is given ...
+    motion = tmp_path / "fixed.motion.json"
+    assert main(["fix", whip_clip, str(tmp_path / "fixed.mp4"), "--readout", "lensed", "--model", "rotation",
+                 "--save-motion", str(motion)]) == 0
+    err = capsys.readouterr().err
+    lens = json.loads(motion.read_text())["model"]
+    assert lens["kind"] == "rotation" and lens["focal_length_px"] == pytest.approx(focal, rel=1e-6)
+    assert lens["distortion"] == pytest.approx([-0.05, 0.01])
+    assert f"its saved lens: focal length {focal:.1f} px" in err
+    # ... and the options override it (a 90-degree view: f = W/2)
+    motion = tmp_path / "wide.motion.json"
+    assert main(["fix", whip_clip, str(tmp_path / "wide.mp4"), "--readout", "lensed", "--model", "rotation",
+                 "--hfov", "90", "--save-motion", str(motion)]) == 0
+    err = capsys.readouterr().err
+    lens = json.loads(motion.read_text())["model"]
+    assert lens["focal_length_px"] == pytest.approx(W / 2, rel=1e-9) and lens["distortion"] == [0.0, 0.0]
+    assert "the lens options override its saved lens" in err
+
+
+def test_an_estimated_focal_length_has_an_uncertainty_in_json():
+    from skewfix.measure.result import ModelUsed, ReadoutEstimate
+    from skewfix.models.rotation import Rotation
+
+    kind = Rotation(W, H, 200.0, focal_estimated=True, focal_uncertainty_px=4.5)
+    est = ReadoutEstimate(0.02, 0.001, "top-down", "motion", [0, 1], H, 1 / 30,
+                          model=ModelUsed.from_kind(kind, "a wide lens turning"))
+    data = est.to_json_dict()
+    assert data["model"] == "rotation" and data["model_reason"] == "a wide lens turning"
+    assert data["focal_length_px"] == 200.0 and data["focal_uncertainty_px"] == 4.5
+    assert data["focal_given"] is False
+    # pinhole relation again: hfov = 2 atan((W/2) / f) (Hartley & Zisserman, sec. 6.1)
+    assert data["hfov_deg"] == pytest.approx(math.degrees(2 * math.atan(W / 2 / 200.0)))
+    assert "± 4.5 px measured from the footage" in est.model.line()
+
+
+@pytest.fixture(scope="module")
+def wide_lens_clip(tmp_path_factory):
+    """A 90-degree lens sweeping in yaw with a little shake, rendered by tests/truth.py (the
+    pinhole p ~ K R d, row y exposed at t_k + readout * y / H; it imports nothing from skewfix)."""
+    import truth
+
+    path = truth.RotationPath(sweep_peak_deg_s=60, sweep_centre_s=0.4, sweep_duration_s=0.6,
+                              shake_deg=(0.3, 0.3, 0.2), seed=1)
+    clip = truth.render_rotation_clip(480, 270, 24, 30, 0.024, 90.0, path, noise=1.0)
+    src = tmp_path_factory.mktemp("wide_lens") / "wide.mp4"
+    truth.write_clip(src, clip.frames, 30)
+    return str(src), clip
+
+
+def test_focal_length_measured_by_measure_is_saved_and_used_by_fix(wide_lens_clip, tmp_path, capsys, config_dir):
+    src, clip = wide_lens_clip
+    out_json = tmp_path / "wide.json"
+    assert main(["measure", src, "--method", "motion", "--json", str(out_json), "--save-camera", "wide"]) == 0
+    captured = capsys.readouterr()
+    data = json.loads(out_json.read_text())
+    # the renderer's truth: a 24 ms readout through a 90-degree lens, f = W/2 = 240 px (pinhole relation,
+    # Hartley & Zisserman sec. 6.1); auto sees the wide lens turning and measures its focal length
+    assert data["model"] == "rotation" and "wide lens" in data["model_reason"]
+    assert data["focal_given"] is False and 0 < data["focal_uncertainty_px"] < 0.1 * data["focal_length_px"]
+    assert data["focal_length_px"] == pytest.approx(clip.focal_px, rel=0.05)
+    assert data["readout_ms"] == pytest.approx(24.0, rel=0.05)
+    assert "measured from the footage" in next(line for line in captured.out.splitlines()
+                                               if line.startswith("model "))
+    cam_text = (config_dir / "cameras" / "wide.camera").read_text()
+    assert f"focal_length_px: {data['focal_length_px']:.4f}" in cam_text
+
+    # fix --readout NAME with no lens option fits the saved lens (auto: a lens given, the rotation fits)
+    motion = tmp_path / "wide.motion.json"
+    assert main(["fix", src, str(tmp_path / "fixed.mp4"), "--readout", "wide", "--save-motion", str(motion)]) == 0
+    err = capsys.readouterr().err
+    model = json.loads(motion.read_text())["model"]
+    assert model["kind"] == "rotation"
+    assert model["focal_length_px"] == pytest.approx(data["focal_length_px"], rel=1e-4)
+    assert "its saved lens" in err and "note: motion model: 3-D rotation" in err

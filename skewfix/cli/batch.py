@@ -8,6 +8,7 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
+from skewfix.cli.fix import distortion_option, focal_option, hfov_option, model_option
 from skewfix.errors import UsageProblem
 
 
@@ -47,6 +48,10 @@ def batch_command(
     codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
     crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
     preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
+    model: Optional[str] = model_option(None),
+    hfov: Optional[str] = hfov_option(),
+    focal_length: Optional[str] = focal_option(),
+    lens_distortion: Optional[str] = distortion_option(),
     workers: Optional[int] = typer.Option(None, "--workers", "-j",
                                           help="Clips corrected at once on this machine (default: half the cores)."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler",
@@ -62,7 +67,8 @@ def batch_command(
     if workers is not None and scheduler is not None:
         raise UsageProblem("--workers and --scheduler exclude each other (the cluster decides)")
     defaults = {"readout": readout, "line-order": line_order, "reference-line": reference_line,
-                "border": border, "codec": codec, "crf": None if crf is None else str(crf), "preset": preset}
+                "border": border, "codec": codec, "crf": None if crf is None else str(crf), "preset": preset,
+                "model": model, "hfov": hfov, "focal-length": focal_length, "lens-distortion": lens_distortion}
 
     def announce(outcome):
         if quiet:

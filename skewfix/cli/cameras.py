@@ -58,6 +58,7 @@ def show_command(name: str = typer.Argument(..., help="A saved camera's name."))
         ("method", c.method or "-"),
         ("measured on", c.measured or "-"),
         ("test clip", c.clip or "-"),
+        ("lens", c.lens_text()),
         ("file", str(c.path)),
     ]
     width = max(len(k) for k, _ in fields)

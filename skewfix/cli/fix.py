@@ -6,7 +6,7 @@ from typing import Optional
 
 import typer
 
-from skewfix.cameras import readout_plan
+from skewfix.cameras import plan_readout
 from skewfix.cli import app
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import UsageProblem
@@ -17,6 +17,44 @@ def choice(value: str, allowed, option: str) -> str:
     if value not in allowed:
         raise UsageProblem(f"{option} must be one of {', '.join(allowed)}, not {value!r}")
     return value
+
+
+# The motion model and lens options, shared by fix, measure, preview and batch.
+MODEL_HELP = ("Motion model: auto (default: the similarity unless a wide lens turning is seen), "
+              "similarity (pan, tilt, roll, zoom of the picture) or rotation (a camera turning "
+              "about its centre, through a lens).")
+HFOV_HELP = "Horizontal field of view of the stored frame, degrees (the lens for the rotation model)."
+FOCAL_HELP = ("Focal length of the lens: 26mm or 1450px; mm is the 35 mm-equivalent figure phone "
+              "makers quote, px is in pixels of the stored frame.")
+DISTORTION_HELP = "Radial lens distortion K1 or K1,K2 (Brown–Conrady, OpenCV's convention)."
+
+
+def model_option(default: Optional[str] = "auto"):
+    return typer.Option(default, "--model", help=MODEL_HELP)
+
+
+def hfov_option():
+    return typer.Option(None, "--hfov", metavar="DEG", help=HFOV_HELP)
+
+
+def focal_option():
+    return typer.Option(None, "--focal-length", metavar="26mm|1450px", help=FOCAL_HELP)
+
+
+def distortion_option():
+    return typer.Option(None, "--lens-distortion", metavar="K1[,K2]", help=DISTORTION_HELP)
+
+
+def model_and_lens(model: str, hfov: Optional[str], focal_length: Optional[str],
+                   distortion: Optional[str]):
+    """``--model`` checked against the known models, and the lens options as a `LensSpec`
+    (None when no lens option was given); `UsageProblem` naming the option otherwise."""
+    from skewfix.models.choice import MODELS, parse_lens
+
+    choice(model, MODELS, "--model")
+    if hfov is None and focal_length is None and distortion is None:
+        return model, None
+    return model, parse_lens(hfov, focal_length, distortion)
 
 
 @app.command("fix")
@@ -30,6 +68,10 @@ def fix_command(
     reference_line: str = typer.Option("middle", "--reference-line",
                                        help="Row whose instant the corrected frame shows: middle, top or bottom."),
     border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge, black or crop."),
+    model: str = model_option(),
+    hfov: Optional[str] = hfov_option(),
+    focal_length: Optional[str] = focal_option(),
+    lens_distortion: Optional[str] = distortion_option(),
     interpolation: str = typer.Option("cubic", "--interpolation",
                                       help="Resampling of luma/RGB: cubic (sharper, default) or linear (faster)."),
     codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
@@ -63,11 +105,14 @@ def fix_command(
         choice(line_order, LINE_ORDERS, "--line-order")
     choice(reference_line, REFERENCE_LINES, "--reference-line")
     choice(border, BORDERS, "--border")
-    seconds, order, origin, resolver = readout_plan(readout, line_order)
-    options = FixOptions(readout=seconds or 0.0, readout_origin=origin, line_order=order,
+    model, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
+    plan = plan_readout(readout, line_order, lens)
+    resolver = plan.resolver
+    options = FixOptions(readout=plan.seconds or 0.0, readout_origin=plan.origin, line_order=plan.line_order,
                          reference_line=reference_line, border=border, codec=codec, crf=crf,
                          preset=preset, force=force, fps=parse_rate(fps),
-                         interpolation=choice(interpolation, ("cubic", "linear"), "--interpolation"))
+                         interpolation=choice(interpolation, ("cubic", "linear"), "--interpolation"),
+                         model=model, lens=plan.lens)
     extras = FixDeliverables(input, output, motion=save_motion, motion_csv=save_motion_csv, maps_dir=save_maps,
                              matte=save_matte, report=report, reference_line=reference_line, border=border,
                              force=force, fps=options.fps,

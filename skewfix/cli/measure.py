@@ -13,7 +13,7 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.fix import choice
+from skewfix.cli.fix import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
@@ -134,13 +134,23 @@ def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):
 
 
 class _Measurer:
-    """Runs the methods on one clip, sharing one analysis pass between motion and pan."""
+    """Runs the methods on one clip, sharing one analysis pass between motion and pan.
 
-    def __init__(self, clip, fps, light_hz, exposure_s, progress):
+    The motion method first chooses the motion model (``model``, ``lens``: as
+    `skewfix.models.choice.choose_model` takes them) on the tracks at no
+    readout, then measures the readout with it; a focal length estimated from
+    the footage is measured again at that readout, as ``fix --readout auto`` does.
+    """
+
+    def __init__(self, clip, fps, light_hz, exposure_s, progress, model="auto", lens=None):
+        from skewfix.models.choice import LensSpec
+
         self.clip, self.fps, self.light_hz, self.exposure_s = clip, fps, light_hz, exposure_s
         self.progress = progress
+        self.model, self.lens = model, lens or LensSpec()
         self.analysis = None
         self.info = None
+        self.choice = None  # the motion method's model choice, reused by save_motion
 
     def _analysis(self):
         if self.analysis is None:
@@ -159,17 +169,40 @@ class _Measurer:
             from skewfix.measure.pan import measure_pan
 
             return measure_pan(self.clip, self._analysis(), self.fps)
-        from skewfix.measure.selfcal import measure_motion
+        return self._run_motion()
 
-        return measure_motion(self._analysis(), line_order=None)
+    def _run_motion(self):
+        from skewfix.measure.result import ModelUsed
+        from skewfix.measure.selfcal import measure_motion
+        from skewfix.models.choice import ModelChoice
+        from skewfix.pipeline import choose_for_analysis
+
+        analysis = self._analysis()
+        chosen = choose_for_analysis(analysis, self.model, self.lens, 0.0, "top-down")
+        estimate = measure_motion(analysis, None, kind=chosen.kind)
+        if getattr(chosen.kind, "focal_estimated", False):
+            order = estimate.line_order if estimate.line_order != "undetermined" else "top-down"
+            try:
+                again = choose_for_analysis(analysis, "rotation", self.lens, estimate.readout_s, order)
+                chosen = ModelChoice(again.kind, chosen.reason + "; focal length measured again at the "
+                                     f"measured readout: {again.kind.lens.focal_px:.1f} px", chosen.misfits_px)
+            except MeasurementRefused:
+                estimate.notes.append("the focal length could not be measured again at the measured readout; "
+                                      "the one found at no readout is kept")
+        self.choice = chosen
+        estimate.model = ModelUsed.from_kind(chosen.kind, chosen.reason)
+        return estimate
 
     def save_motion(self, estimate, json_path, csv_path) -> None:
-        """Solve the clip's motion with the measured readout and save it (motion file, table)."""
+        """Solve the clip's motion with the measured readout and save it (motion file, table),
+        with the motion method's model, else one chosen at the measured readout."""
         from skewfix.motionfile import save_motion, save_motion_csv
-        from skewfix.pipeline import solve
+        from skewfix.pipeline import choose_for_analysis, solve
 
         order = estimate.line_order if estimate.line_order != "undetermined" else "top-down"
-        clock, model = solve(self._analysis(), estimate.readout_s, order)
+        analysis = self._analysis()
+        choice = self.choice or choose_for_analysis(analysis, self.model, self.lens, estimate.readout_s, order)
+        clock, model = solve(analysis, estimate.readout_s, order, choice=choice)
         if json_path:
             save_motion(json_path, model, clock, "middle", self.analysis.info)
         if csv_path:
@@ -196,6 +229,8 @@ def summary_lines(estimate) -> list[str]:
                      f"{estimate.frame_interval * 1e3:.3f} ms frame interval")
     lines.append(f"line order    {estimate.line_order}")
     lines.append(f"method        {estimate.method}")
+    if getattr(estimate, "model", None) is not None:
+        lines.append(f"model         {estimate.model.line()}")
     lines.append(f"frames        {frame_ranges(estimate.frames_used)} ({len(estimate.frames_used)} in all)")
     return lines
 
@@ -222,10 +257,15 @@ def measure_command(
                                                    "and write it (JSON motion file)."),
     save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv",
                                                   help="The same motion as a table, one row per frame (CSV)."),
+    model: str = model_option(),
+    hfov: Optional[str] = hfov_option(),
+    focal_length: Optional[str] = focal_option(),
+    lens_distortion: Optional[str] = distortion_option(),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Only the result line; no progress or notes."),
 ):
     """Measure the readout time (first to last row) of the camera mode that shot CLIP."""
     choice(method, METHODS, "--method")
+    model, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
     motion_json = check_report_path(save_motion, clip, "--save-motion")
     motion_csv = check_report_path(save_motion_csv, clip, "--save-motion-csv")
     if light_hz is not None and not (math.isfinite(light_hz) and light_hz > 0):
@@ -253,11 +293,15 @@ def measure_command(
         order = [method]
         if light_hz is not None and method != "flicker":
             say(f"note: --light-hz is only used by the flicker method, not {method}")
+        if (model != "auto" or lens is not None) and method != "motion" and save_motion is None \
+                and save_motion_csv is None:
+            say(f"note: --model and the lens options are only used by the motion method and --save-motion, "
+                f"not {method}")
 
     refused: list[tuple[str, str]] = []
     estimate = None
     with TerminalProgress(quiet) as progress:
-        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress)
+        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress, model, lens)
         for name in order:
             try:
                 estimate = measurer.run(name)

@@ -32,6 +32,7 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
+from skewfix.cli.fix import distortion_option, focal_option, hfov_option, model_and_lens, model_option
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
@@ -102,6 +103,24 @@ def check_output_options(output: str, sink_options: dict) -> None:
             raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
     elif depth is not None:
         raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
+
+
+def solve_with_model(analysis, plan, request: str):
+    """The clip's motion for a `skewfix.cameras.ReadoutPlan` and a ``--model`` request, as
+    `skewfix.pipeline.fix_clip` solves it: with a readout to measure (or a saved camera's
+    to check), the model is chosen at no readout first, and a focal length estimated from
+    the footage is measured again at the readout found. Returns (clock, motion model)."""
+    from skewfix.pipeline import choose_for_analysis, solve
+
+    seconds, order = plan.seconds, plan.line_order
+    if plan.resolver is not None:
+        chosen = choose_for_analysis(analysis, request, plan.lens, 0.0, order)
+        seconds, order, _origin = plan.resolver(analysis, chosen.kind)
+        if getattr(chosen.kind, "focal_estimated", False):
+            chosen = choose_for_analysis(analysis, "rotation", plan.lens, seconds, order)
+    else:
+        chosen = choose_for_analysis(analysis, request, plan.lens, seconds, order)
+    return solve(analysis, seconds, order, choice=chosen)
 
 
 def output_first_number(info) -> int:
@@ -381,14 +400,18 @@ def preview_command(
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
     force: bool = typer.Option(False, "--force", help="Replace OUT if it exists."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+    model: str = model_option(),
+    hfov: Optional[str] = hfov_option(),
+    focal_length: Optional[str] = focal_option(),
+    lens_distortion: Optional[str] = distortion_option(),
 ):
     """Write a before/after still of one frame, with straight reference lines over both halves."""
-    from skewfix.cameras import readout_plan
+    from skewfix.cameras import plan_readout
     from skewfix.cli.fix import choice
     from skewfix.rowclock import parse_rate
     from skewfix.files import write_whole
     from skewfix.motionfile import check_new_file
-    from skewfix.pipeline import FrameWarper, RenderSettings, analyse, solve
+    from skewfix.pipeline import FrameWarper, RenderSettings, analyse
     from skewfix.warp import BORDERS
 
     if line_order is not None:
@@ -402,22 +425,23 @@ def preview_command(
     check_new_file(out, force, "--out")
     check_distinct_outputs(clip, {"--out": out})
     rate = parse_rate(fps)
-    seconds, order, _origin, resolver = readout_plan(readout, line_order)
+    request, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
+    plan = plan_readout(readout, line_order, lens)
     with TerminalProgress(quiet) as progress:
         analysis = analyse(clip, rate, progress=progress)
     if frame >= analysis.n_frames:
         raise InputError(f"{clip}: has {analysis.n_frames} frames (0 to {analysis.n_frames - 1}); "
                          f"there is no frame {frame}")
-    if resolver is not None:
-        seconds, order, _origin = resolver(analysis, None)
-    clock, model = solve(analysis, seconds, order)
-    warper = FrameWarper(model, clock, RenderSettings(reference_line, border), analysis.info)
+    clock, solved = solve_with_model(analysis, plan, request)
+    warper = FrameWarper(solved, clock, RenderSettings(reference_line, border), analysis.info)
     before = decoded_frame_at(clip, rate, frame)
     after, _ = warper.apply(frame, before.planes, before.subsampling)
     info = analysis.info
     png = still_png(planes_to_rgb(before.planes, before.pix_fmt, info, 8),
                     planes_to_rgb(after, before.pix_fmt, info, 8))
     write_whole(out, png)
+    typer.echo(f"note: motion model: {solved.kind.summary()}"
+               + (f" ({solved.model_reason})" if solved.model_reason else ""), err=True)
     if not quiet:
         typer.echo(f"wrote {out} (frame {frame}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
                    err=True)
