@@ -61,7 +61,10 @@ class BackgroundChoice:
 
 def hypotheses(kind, p0: np.ndarray, p1: np.ndarray) -> list[Hypothesis]:
     """Up to `MAX_HYPOTHESES` motions of one pair by sequential RANSAC."""
+    import cv2
+
     n = len(p0)
+    cv2.setRNGSeed(n)  # RANSAC draws from OpenCV's shared generator: the same pair gives the same answer
     left = np.ones(n, bool)
     out: list[Hypothesis] = []
     need = max(6, int(np.ceil(MIN_SHARE * n)))

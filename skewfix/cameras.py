@@ -114,9 +114,9 @@ class SavedCamera:
         if not self.has_lens and not self.lens_distortion:
             return None
         distortion = tuple(self.lens_distortion) if self.lens_distortion else (0.0, 0.0)
-        if self.focal_length_px is not None:
-            return LensSpec(focal_px=self.focal_length_px, distortion=distortion)
-        return LensSpec(hfov_deg=self.hfov_deg, distortion=distortion)
+        if self.hfov_deg is not None:  # the field of view scales with a clip of another size
+            return LensSpec(hfov_deg=self.hfov_deg, distortion=distortion)
+        return LensSpec(focal_px=self.focal_length_px, distortion=distortion)
 
     def lens_text(self) -> str:
         """``focal length 277.1 px (60.0° horizontal view), distortion k1=-0.1, k2=0`` or ``-``."""

@@ -152,6 +152,34 @@ def choose_for_analysis(analysis: Analysis, request: str, lens: LensSpec, readou
         raise MeasurementRefused(f"{analysis.info.path}: {exc}") from None
 
 
+def choose_with_readout(analysis: Analysis, request: str, lens: LensSpec, readout: float, line_order: str,
+                        resolver=None, settings: FitSettings | None = None):
+    """The motion model and the readout for an analysed clip.
+
+    With a ``resolver(analysis, kind) -> (readout, line_order, origin)`` (a readout to
+    measure, or a saved camera's to check against the clip), the model is chosen at no
+    readout, the readout resolved with it, and a focal length estimated from the
+    footage is measured again at the readout found. Returns
+    (readout, line_order, origin or None, `ModelChoice`).
+    """
+    from skewfix.errors import MeasurementRefused
+
+    if resolver is None:
+        return readout, line_order, None, choose_for_analysis(analysis, request, lens, readout, line_order, settings)
+    chosen = choose_for_analysis(analysis, request, lens, 0.0, line_order, settings)
+    readout, line_order, origin = resolver(analysis, chosen.kind)
+    if getattr(chosen.kind, "focal_estimated", False):
+        order = line_order if line_order in ("top-down", "bottom-up") else "top-down"
+        try:
+            again = choose_for_analysis(analysis, "rotation", lens, readout, order, settings)
+            chosen = ModelChoice(again.kind, f"{chosen.reason}; focal length measured again at the readout found: "
+                                             f"{again.kind.lens.focal_px:.1f} px", chosen.misfits_px)
+        except MeasurementRefused:
+            chosen = ModelChoice(chosen.kind, f"{chosen.reason}; the focal length found at no readout is kept "
+                                              "(it could not be measured again)", chosen.misfits_px)
+    return readout, line_order, origin, chosen
+
+
 def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
     """The value of black in each plane (limited-range YUV unless tagged full)."""
     top = (1 << info.bit_depth) - 1
@@ -300,7 +328,8 @@ class StreamingWarper(FrameWarper):
         self.choice: ModelChoice | None = None
         if model_request == "similarity" or self.fit_settings.kind is not None:
             kind = self.fit_settings.kind_for(info.width, info.height)
-            self.choice = ModelChoice(kind, "asked for" if model_request == "similarity" else "given", {})
+            self.choice = ModelChoice(kind, "asked for (--model similarity)" if model_request == "similarity"
+                                      else "given", {})
         self.tracker = PairTracker(tracker)
         auto_window, auto_margin = window_for(info)
         self.window = window or auto_window
@@ -785,15 +814,9 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     if whole_clip:
         # --readout auto and --border crop need the whole clip's motion first: analyse, then render
         analysis = analyse(input_path, options.fps, options.tracker, progress, times)
-        if readout_resolver is not None:
-            # the model is chosen at no readout, the readout measured with it, and an
-            # estimated focal length measured again at that readout
-            choice = choose_for_analysis(analysis, options.model, options.lens, 0.0, line_order, options.fit)
-            readout, line_order, origin = readout_resolver(analysis, choice.kind)
-            if getattr(choice.kind, "focal_estimated", False):
-                choice = choose_for_analysis(analysis, "rotation", options.lens, readout, line_order, options.fit)
-        else:
-            choice = choose_for_analysis(analysis, options.model, options.lens, readout, line_order, options.fit)
+        readout, line_order, resolved, choice = choose_with_readout(
+            analysis, options.model, options.lens, readout, line_order, readout_resolver, options.fit)
+        origin = resolved or origin
         clock, model = solve(analysis, readout, line_order, options.fit, times, choice)
         warper = FrameWarper(model, clock, settings, analysis.info)
         info = analysis.info

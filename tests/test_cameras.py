@@ -211,7 +211,9 @@ def test_lens_round_trip(config_dir):
     assert cam.hfov_deg == pytest.approx(math.degrees(2 * math.atan(1920 / 1450.0)), abs=1e-4)
     assert cam.lens_distortion == pytest.approx((-0.12, 0.03))
     spec = cam.lens_spec()
-    assert spec.focal_px == pytest.approx(1450.0) and spec.distortion == pytest.approx((-0.12, 0.03))
+    # the saved field of view is used, so a clip of another size gets the focal length scaled
+    assert spec.focal_for(3840, 2160) == pytest.approx(1450.0) and spec.focal_for(1920, 1080) == pytest.approx(725.0)
+    assert spec.distortion == pytest.approx((-0.12, 0.03))
     assert any("measured from the footage, ± 12.0 px" in note for note in cam.notes)
     assert "focal length 1450.0 px" in cam.lens_text() and "k1=-0.12" in cam.lens_text()
 
@@ -254,7 +256,8 @@ def test_saved_lens_is_used_unless_the_options_give_one(config_dir):
 
     save_camera("phone-4k30", lens_estimate(), video_info())
     plan = plan_readout("phone-4k30", None)
-    assert plan.lens.focal_px == pytest.approx(1450.0) and plan.lens.distortion == pytest.approx((-0.12, 0.03))
+    assert plan.lens.focal_for(3840, 2160) == pytest.approx(1450.0)
+    assert plan.lens.distortion == pytest.approx((-0.12, 0.03))
     assert "its saved lens: focal length 1450.0 px" in plan.origin
     given = parse_lens(hfov="90")
     plan = plan_readout("phone-4k30", None, given)

@@ -174,21 +174,16 @@ class _Measurer:
     def _run_motion(self):
         from skewfix.measure.result import ModelUsed
         from skewfix.measure.selfcal import measure_motion
-        from skewfix.models.choice import ModelChoice
-        from skewfix.pipeline import choose_for_analysis
+        from skewfix.pipeline import choose_with_readout
 
-        analysis = self._analysis()
-        chosen = choose_for_analysis(analysis, self.model, self.lens, 0.0, "top-down")
-        estimate = measure_motion(analysis, None, kind=chosen.kind)
-        if getattr(chosen.kind, "focal_estimated", False):
-            order = estimate.line_order if estimate.line_order != "undetermined" else "top-down"
-            try:
-                again = choose_for_analysis(analysis, "rotation", self.lens, estimate.readout_s, order)
-                chosen = ModelChoice(again.kind, chosen.reason + "; focal length measured again at the "
-                                     f"measured readout: {again.kind.lens.focal_px:.1f} px", chosen.misfits_px)
-            except MeasurementRefused:
-                estimate.notes.append("the focal length could not be measured again at the measured readout; "
-                                      "the one found at no readout is kept")
+        found = {}
+
+        def resolver(analysis, kind):
+            est = found["estimate"] = measure_motion(analysis, None, kind=kind)
+            return est.readout_s, est.line_order, None
+
+        _, _, _, chosen = choose_with_readout(self._analysis(), self.model, self.lens, 0.0, "top-down", resolver)
+        estimate = found["estimate"]
         self.choice = chosen
         estimate.model = ModelUsed.from_kind(chosen.kind, chosen.reason)
         return estimate

@@ -110,16 +110,10 @@ def solve_with_model(analysis, plan, request: str):
     `skewfix.pipeline.fix_clip` solves it: with a readout to measure (or a saved camera's
     to check), the model is chosen at no readout first, and a focal length estimated from
     the footage is measured again at the readout found. Returns (clock, motion model)."""
-    from skewfix.pipeline import choose_for_analysis, solve
+    from skewfix.pipeline import choose_with_readout, solve
 
-    seconds, order = plan.seconds, plan.line_order
-    if plan.resolver is not None:
-        chosen = choose_for_analysis(analysis, request, plan.lens, 0.0, order)
-        seconds, order, _origin = plan.resolver(analysis, chosen.kind)
-        if getattr(chosen.kind, "focal_estimated", False):
-            chosen = choose_for_analysis(analysis, "rotation", plan.lens, seconds, order)
-    else:
-        chosen = choose_for_analysis(analysis, request, plan.lens, seconds, order)
+    seconds, order, _origin, chosen = choose_with_readout(analysis, request, plan.lens, plan.seconds,
+                                                          plan.line_order, plan.resolver)
     return solve(analysis, seconds, order, choice=chosen)
 
 
