@@ -92,7 +92,7 @@ def _flicker_case(workdir, name, order_expected, target_pct=0.5, **kw):
                target_pct)
 
 
-# ---- flicker scenarios (issue 3 targets) -------------------------------------
+# ---- flicker scenarios (targets: README, "Finding a camera's readout time") -------------------------------------
 def flicker_1080p25_100hz_still(workdir):
     # plain wall, 100 Hz light (50 Hz mains), f/fps = 4: bands stand still,
     # so the line order cannot be told and must be reported undetermined
@@ -120,7 +120,7 @@ def flicker_textured_bottomup_2997(workdir):
                          texture=skimage.data.camera(), seed=103)
 
 
-# ---- pan scenarios (issue 3 target: within 3 %) -------------------------------
+# ---- pan scenarios (target: within 3 %) -------------------------------
 def _pan_case(workdir, name, order_expected, target_pct=3.0, **kw):
     from skewfix.measure.pan import measure_pan, plot_pan
     from skewfix.synth.edges import render_pan_clip
@@ -206,7 +206,7 @@ def motion_global_shutter(workdir):
 
 
 def fix_auto_whip_pan(workdir):
-    """`fix --readout auto` on a whip pan: issue 2's residual metric (target <= 0.45 px)."""
+    """`fix --readout auto` on a whip pan: the accuracy benchmark's residual metric (target <= 0.45 px)."""
     from skewfix.measure.selfcal import auto_readout_resolver
     from skewfix.pipeline import FixOptions, fix_clip
     from skewfix.synth.paths import WhipPan

@@ -1,4 +1,4 @@
-"""Speed and memory of `fix` against a plain transcode, side by side (issue 4's targets).
+"""Speed and memory of `fix` against a plain transcode, side by side.
 
 Renders rolling-shutter whip pans with skewfix.synth (cached in scripts/.cache),
 then, in one run and alternating, times `fix` and a plain PyAV decode-and-encode

@@ -66,11 +66,11 @@ def band_period_by_zero_crossings(profile):
 
 
 # ---------------------------------------------------------------------------
-# the three target scenarios of issue 3, at reduced size
+# the three target scenarios of the flicker method, at reduced size
 # ---------------------------------------------------------------------------
 @pytest.fixture(scope="module")
 def still_wall(tmp_path_factory):
-    # issue 3 target 1 scaled down: plain wall, 25 fps, 100 Hz light (50 Hz
+    # target 1 scaled down: plain wall, 25 fps, 100 Hz light (50 Hz
     # mains, IEC 60038), so f/fps = 4 and the bands stand still
     tmp = tmp_path_factory.mktemp("still")
     return render_and_measure(tmp, width=960, height=540, fps=Fraction(25), n_frames=12,
@@ -89,7 +89,7 @@ def test_black_code_is_ffmpegs():
 def test_plain_wall_still_bands_25fps_100hz(still_wall):
     truth, est, _, _ = still_wall
     assert est.method == "flicker"
-    assert rel_err(est, truth) < 0.005                       # issue 3 target: 0.5 %
+    assert rel_err(est, truth) < 0.005                       # target: 0.5 %
     assert abs(est.readout_s - truth.readout_s) < 6 * est.uncertainty_s + 1e-9
     assert est.readout_fraction <= 1.0
     # f/fps = 100/25 = 4, a whole number: the bands stand still
@@ -100,7 +100,7 @@ def test_plain_wall_still_bands_25fps_100hz(still_wall):
 
 
 def test_720p_23976_120hz_with_shake(tmp_path):
-    # issue 3 target 2 scaled down: 24000/1001 fps (SMPTE/NTSC rational rate),
+    # target 2 scaled down: 24000/1001 fps (SMPTE/NTSC rational rate),
     # 120 Hz light (60 Hz mains, IEC 60038), ~2 px shake at 720p -> 1 px at 360
     truth, est, _, times = render_and_measure(
         tmp_path, width=640, height=360, fps=Fraction(24000, 1001), n_frames=48,
@@ -114,7 +114,7 @@ def test_720p_23976_120hz_with_shake(tmp_path):
 
 @pytest.mark.parametrize("texture_name", ["camera", "astronaut"])
 def test_textured_wall_bottom_up_2997(tmp_path, texture_name):
-    # issue 3 target 3 scaled down: a photograph bundled with scikit-image as
+    # target 3 scaled down: a photograph bundled with scikit-image as
     # the wall, bottom-up scan, 30000/1001 fps, 100 Hz light
     texture = getattr(skimage.data, texture_name)()
     truth, est, _, _ = render_and_measure(
@@ -164,7 +164,7 @@ def test_bands_at_twice_the_mains_frequency(tmp_path, mains):
     (600.0, 0.020, 480),    # an LED driver's own rate: 12 bands a frame
 ])
 def test_band_period_is_height_over_f_times_readout(tmp_path, light_hz, readout, height):
-    # DESIGN.md / rolling-shutter timing: rows are clocks, so the bands repeat
+    # rolling-shutter timing (skewfix/rowclock.py): rows are clocks, so the bands repeat
     # every H / (f * readout) rows
     truth = render_flicker_clip(tmp_path / "p.mp4", 640, height, Fraction(25), 3, readout,
                                 light_hz, gradient=False, vignette=False, seed=6)
@@ -283,7 +283,7 @@ def test_line_order_undetermined_when_bands_stand_still(tmp_path, fps, light_hz)
 
 
 def test_variable_frame_times(tmp_path):
-    # phones write variable frame rates (DESIGN.md): drop frames irregularly and
+    # phones write variable frame rates (common practice): drop frames irregularly and
     # pass the true times; the fit must use them, not k / fps
     truth = render_flicker_clip(tmp_path / "vfr.mp4", 480, 270, Fraction(30000, 1001), 14,
                                 0.022, 100.0, line_order="bottom-up", seed=14)
@@ -340,7 +340,7 @@ def test_json_fields(still_wall):
     d = est.to_json_dict()
     assert d["method"] == "flicker"
     assert d["readout_ms"] == pytest.approx(truth.readout_s * 1e3, rel=0.005)
-    # line delay is readout / H (DESIGN.md timing model)
+    # line delay is readout / H (the row clock, skewfix/rowclock.py)
     assert d["line_delay_us"] == pytest.approx(truth.readout_s / 540 * 1e6, rel=0.005)
     assert d["readout_fraction"] == pytest.approx(truth.readout_s * 25, rel=0.005)
     assert math.isfinite(d["uncertainty_ms"]) and d["uncertainty_ms"] > 0

@@ -84,7 +84,7 @@ def test_frame_slant_of_a_sheared_chart_matches_scipy_affine():
 
 
 def test_pair_speeds_use_each_pairs_own_interval():
-    # DESIGN.md: frame times come from timestamps (phones write variable frame
+    # frame times come from timestamps (phones write variable frame
     # rates), so a pair 50 ms apart that moved 45 px went 900 px/s.
     from types import SimpleNamespace
 
@@ -110,7 +110,7 @@ def test_pair_speeds_use_each_pairs_own_interval():
     (600.0, 0.024, "bottom-up"),
 ])
 def test_one_way_pan_within_3_percent(pan_clip, speed, readout, order):
-    # Target from issue 3: the pan method within 3 % of the true readout on
+    # Target: the pan method within 3 % of the true readout on
     # synthetic H.264 clips; the line order is by the row clock's definition.
     path, _, _ = pan_clip([speed], readout, order)
     est = measured(path)
@@ -156,7 +156,7 @@ def test_one_way_pan_at_two_speeds_also_cancels_the_tilt(pan_clip):
 
 
 def test_skew_grows_linearly_with_readout(pan_clip):
-    # Common practice (and DESIGN.md): the lean of a steady pan is proportional
+    # Common practice: the lean of a steady pan is proportional
     # to the readout, so doubling the readout doubles the measured value.
     short = measured(pan_clip([900.0], 0.010)[0])
     long = measured(pan_clip([900.0], 0.020)[0])

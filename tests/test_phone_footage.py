@@ -126,7 +126,7 @@ def test_variable_frame_rate_keeps_its_timestamps(panorama, tmp_path):
     result = fix_clip(str(src), str(out), FixOptions(readout=READOUT))
     before, after = video_facts(src), video_facts(out)
     assert after["times"] == before["times"] == [Fraction(int(p), 90000) for p in pts]
-    # the row clock was driven by the timestamps, not by k / fps (DESIGN.md: phones write VFR)
+    # the row clock was driven by the timestamps, not by k / fps (phones write variable frame rates: common practice)
     assert np.allclose(result.clock.frame_times, times, atol=1e-9)
     assert_corrected(clip, before, after, frames=(2, 5, 8))
 
@@ -193,7 +193,7 @@ def test_rows_are_timed_from_each_frames_own_timestamp(steps, height, readout):
     clock = RowClock(times, height, readout)
     k = np.arange(len(times))[:, None]
     rows = np.array([0, height // 2, height - 1])[None, :]
-    # t(k, y) = t_k + readout * y / H (DESIGN.md's timing model): the frame's own time, never k / fps
+    # t(k, y) = t_k + readout * y / H (the row clock, skewfix/rowclock.py): the frame's own time, never k / fps
     assert np.allclose(clock.row_time(k, rows), times[:, None] + readout * rows / height, rtol=0, atol=1e-12)
 
 
@@ -216,7 +216,7 @@ def test_a_readout_fits_only_inside_the_frame_interval(steps, fraction):
     times = np.concatenate([[0.0], np.cumsum(steps) / 90000.0])
     interval = float(np.median(np.diff(times)))
     clock = RowClock(times, 1080, fraction * interval)
-    # the readout fraction readout / frame interval is at most 1 (DESIGN.md)
+    # the readout fraction readout / frame interval is at most 1 (fact of the trade)
     if fraction <= 1.0:
         clock.check_readout_fits()
     else:

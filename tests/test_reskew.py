@@ -191,7 +191,7 @@ def test_global_shutter_maps_are_the_identity(plate, tmp_path, capsys):
 
 def test_motion_saved_by_fix_matches_the_camera(plate):
     # Physics: a pan at v px/s leans verticals by v * readout * (H-1) / H px between the top
-    # and bottom rows (DESIGN.md, the timing model); the camera's true speed is known.
+    # and bottom rows (the row clock, skewfix/rowclock.py); the camera's true speed is known.
     folder, _, _, clock = plate
     model, clock2, reference_line, meta = load_motion(folder / "m.json")
     assert meta["frame_rate"] == RATE and meta["frame_count"] == N and meta["first_number"] == 1

@@ -26,7 +26,7 @@ def whip(rate):
 @pytest.mark.parametrize("order", ["top-down", "bottom-up"])
 def test_whip_pan_reveals_readout_and_order(tmp_path, panorama, order):
     est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020, order))
-    assert est.readout_s == pytest.approx(0.020, rel=0.05)  # issue 3 target: within 5 %
+    assert est.readout_s == pytest.approx(0.020, rel=0.05)  # target: within 5 %
     assert est.line_order == order
     assert 0 < est.uncertainty_s < 0.002
 
@@ -40,7 +40,7 @@ def test_global_shutter_reports_zero(tmp_path, panorama):
 
 @pytest.mark.parametrize("camera", [SteadyPan(vx_px_s=900.0), Still()])
 def test_steady_motion_is_refused(tmp_path, panorama, camera):
-    # Constant velocity shifts all rows alike whatever the readout (DESIGN.md; common practice).
+    # Constant velocity shifts all rows alike whatever the readout (common practice).
     with pytest.raises(MeasurementRefused, match="too steady"):
         measure_motion(clip(tmp_path, panorama, camera, 0.02))
 

@@ -1,5 +1,5 @@
-"""Readout time from the flicker bands of a light (DESIGN.md, "Measuring the
-readout", item 1).
+"""Readout time from the flicker bands of a light (README.md, "Finding a camera's readout
+time", the first way).
 
 A light whose intensity varies at ``f`` Hz paints horizontal bands on a rolling
 shutter sensor, because each row starts its exposure at its own time

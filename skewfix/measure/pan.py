@@ -1,5 +1,5 @@
-"""Readout time from steady pans across vertical edges (DESIGN.md, "Measuring
-the readout", item 2).
+"""Readout time from steady pans across vertical edges (README.md, "Finding a camera's readout
+time", the second way).
 
 A picture moving sideways at ``u`` px/s on a rolling shutter shows row ``y``
 at ``t_k + readout * y / H`` (top-down), so an edge that is vertical in the

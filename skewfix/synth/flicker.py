@@ -4,8 +4,8 @@ The clips come with exact truth (readout, line order, light frequency, per-frame
 camera shake) so the flicker method of readout measurement can be tested and
 benchmarked without a camera.
 
-The physics rendered here (see DESIGN.md, "The timing model" and "Measuring the
-readout"):
+The physics rendered here (see skewfix/rowclock.py and README.md, "Finding a camera's
+readout time"):
 
 * row ``y`` of frame ``k`` starts its exposure at ``t_k + readout * y / H``
   (top-down) or ``t_k + readout * (H - 1 - y) / H`` (bottom-up), with
