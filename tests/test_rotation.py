@@ -192,3 +192,28 @@ def test_reskew_with_a_rotation_motion_file_puts_the_rolling_shutter_back(wide_c
     print("global views untouched:", " ".join(f"{s:.1f}" for s in untouched))
     fastest = int(np.argmin(untouched))
     assert min(reskewed) >= 36.0 and reskewed[fastest] >= untouched[fastest] + 8.0
+
+
+def test_the_command_line_reports_the_rotation_model(wide_clip, tmp_path, capsys):
+    # `fix --model rotation --hfov 90`: the note, the report page and the CSV say which model was
+    # used, and the CSV carries the rotation's curves in degrees.
+    import csv
+
+    from conftest import run_cli
+
+    src, clip = wide_clip
+    code, err = run_cli(capsys, "fix", src, tmp_path / "out.mp4", "--readout", "24ms", "--model", "rotation",
+                        "--hfov", "90", "--report", tmp_path / "r.html", "--save-motion-csv", tmp_path / "m.csv",
+                        "--quiet")
+    assert code == 0, err
+    assert "motion model: 3-D rotation, focal length 240.0 px (given; 90.0° horizontal view)" in err
+    page = (tmp_path / "r.html").read_text()
+    assert "motion model" in page and "3-D rotation" in page
+    rows = list(csv.DictReader((tmp_path / "m.csv").open()))
+    assert {"rot_x_deg", "rot_y_deg", "rot_z_deg"} <= set(rows[0]) and len(rows) == len(clip.frames)
+    # the yaw sweep turns the camera about its y axis: rot_y grows (60 deg/s peak, 0.6 s sweep;
+    # the truth renderer's raised-cosine sweep covers peak * duration / 2 = 18 degrees)
+    yaw = [float(r["rot_y_deg"]) for r in rows]
+    true_yaw = np.degrees(np.linalg.norm(cv2.Rodrigues(clip.rotation(float(clip.reference_time(len(rows) - 1, (H - 1) / 2)))
+                                                       @ clip.rotation(float(clip.reference_time(0, (H - 1) / 2))).T)[0]))
+    assert abs(abs(yaw[-1] - yaw[0]) - true_yaw) < 0.5
