@@ -319,6 +319,9 @@ def knot_grid(clock: RowClock, first: int, last: int, settings: FitSettings) -> 
     return float(t_lo), float(spacing), n_coef
 
 
+GLOBAL_PAIR_WEIGHT = 0.2  # weight of a whole-frame-shift pair's points against a feature track's
+
+
 class _Track:
     """The usable tracks of one shot, stacked, with their times and spline bases."""
 
@@ -326,6 +329,10 @@ class _Track:
         self.p0 = np.concatenate([p.p0 for p in pairs]).astype(np.float64)
         self.p1 = np.concatenate([p.p1 for p in pairs]).astype(np.float64)
         self.k = np.concatenate([np.full(len(p.p0), p.k) for p in pairs])
+        # a whole-frame shift (no features) says nothing about the rows' own times: it counts
+        # as a weak measurement, so it bridges a blurred pair without bending the curves
+        self.strength = np.concatenate([np.full(len(p.p0), GLOBAL_PAIR_WEIGHT if p.method == "global" else 1.0)
+                                        for p in pairs])
         self.t0 = clock.row_time(self.k, self.p0[:, 1])
         self.t1 = clock.row_time(self.k + 1, self.p1[:, 1])
         self.idx0, self.b0 = bspline_basis(self.t0, seg.knot_start, seg.knot_spacing, seg.n_coef)
@@ -393,6 +400,7 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
 
     weights = w0.copy()
     weights[weights == 0] = 1e-3
+    weights *= tracks.strength
     for it in range(settings.iterations):
         v0 = seg.evaluate(tracks.t0)
         v1 = seg.evaluate(tracks.t1)
@@ -409,6 +417,7 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
             weights = 1.0 / (1.0 + (norm / (2.5 * scale)) ** 2)
             # tracks not taken for the world count only once the fit itself agrees with them
             weights[(w0 == 0) & (norm > 3.0 * scale)] = 0.0
+            weights *= tracks.strength
         weights[bad] = 0.0
 
         # Sparse Jacobian: each residual touches 4 coefficients of each curve at t0 and at t1.

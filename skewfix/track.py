@@ -141,6 +141,7 @@ class PairTracker:
         self._next_id = 0
         # the previous pair's surviving end points (proxy px of the newest frame) and their ids
         self._carry = (np.zeros((0, 2), np.float32), np.zeros(0, np.int64))
+        self._last_motion: dict[int, np.ndarray] = {}  # id -> its displacement in the previous pair (proxy px)
         self._recent = deque(maxlen=self.settings.history)  # (histogram distance, seed response)
 
     def _to_full(self, pts: np.ndarray) -> np.ndarray:
@@ -220,6 +221,7 @@ class PairTracker:
         self._remember(hist_distance, seed_response)
         ids = self._new_ids(ids)
         self._carry = (p1, ids)
+        self._last_motion = dict(zip(ids.tolist(), (p1 - p0).astype(np.float32)))
         return PairObservations(k, self._to_full(p0), self._to_full(p1), ids=ids, method="tracks")
 
     def _remember(self, hist_distance: float, seed_response: float) -> None:
@@ -262,17 +264,56 @@ class PairTracker:
         pts, ids = chained_features(prev.proxy, *self._carry, s.grid, per_cell, threshold)
         if len(pts) < s.min_tracks:
             return np.zeros((0, 2), np.float32), np.zeros((0, 2), np.float32), np.zeros(0, np.int64)
-        guess = pts + np.float32(seed)
+        # a followed feature is expected to move as it did in the previous pair (a subject keeps its
+        # own motion, the world the camera's); a new one as the whole picture's seed says
+        step = np.tile(np.float32(seed), (len(pts), 1))
+        for i in np.flatnonzero(ids >= 0):
+            last = self._last_motion.get(int(ids[i]))
+            if last is not None:
+                step[i] = last
+        guess = pts + step
         lk = dict(winSize=(window, window), maxLevel=s.levels,
                   criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 20, 0.01))
         a, b = prev.proxy, cur.proxy
-        fwd, st1, _ = cv2.calcOpticalFlowPyrLK(a, b, pts, guess.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        fwd, ok = self._follow(a, b, pts, guess, lk)
+        # features lost from that guess get another try from each of the previous pair's main
+        # motions (a subject and the world move differently; the seed may have followed either)
+        for motion in self._main_motions(seed):
+            lost = np.flatnonzero(~ok)
+            if len(lost) == 0:
+                break
+            again, found = self._follow(a, b, pts[lost], pts[lost] + motion, lk)
+            fwd[lost[found]] = again[found]
+            ok[lost[found]] = True
+        return pts[ok], fwd[ok], ids[ok]
+
+    def _follow(self, a, b, pts, guess, lk):
+        """Pyramidal Lucas-Kanade from ``guess`` with the forward-backward check; (end points, ok)."""
+        s = self.settings
+        fwd, st1, _ = cv2.calcOpticalFlowPyrLK(a, b, pts, guess.astype(np.float32), flags=cv2.OPTFLOW_USE_INITIAL_FLOW,
+                                               **lk)
         back, st2, _ = cv2.calcOpticalFlowPyrLK(b, a, fwd, pts.copy(), flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
         h, w = b.shape[:2]
         fb = np.hypot(*(back - pts).T)
         ok = (st1.ravel() == 1) & (st2.ravel() == 1) & (fb < s.fb_threshold)
         ok &= (fwd[:, 0] >= 0) & (fwd[:, 0] <= w - 1) & (fwd[:, 1] >= 0) & (fwd[:, 1] <= h - 1)
-        return pts[ok], fwd[ok], ids[ok]
+        return fwd, ok
+
+    def _main_motions(self, seed, apart: float = 3.0) -> list[np.ndarray]:
+        """Up to two displacements the previous pair's tracks mostly shared (its median, then the
+        median of the tracks that did not share it), each unlike the seed."""
+        if not self._last_motion:
+            return []
+        moves = np.array(list(self._last_motion.values()), np.float32)
+        out = []
+        for _ in range(2):
+            if len(moves) < 4:
+                break
+            centre = np.median(moves, axis=0)
+            if np.hypot(*(centre - np.float32(seed))) > apart and all(np.hypot(*(centre - m)) > apart for m in out):
+                out.append(centre)
+            moves = moves[np.hypot(*(moves - centre).T) > apart]
+        return out
 
 
 def _reduced_scale(shape, factor: int) -> tuple[float, float]:
