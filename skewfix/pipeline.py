@@ -74,6 +74,16 @@ class StageTimes:
         return dict(decode=self.decode, track=self.track, fit=self.fit, remap=self.remap, encode=self.encode)
 
 
+def longest_run(ks) -> int:
+    """Length of the longest run of consecutive numbers in ``ks``."""
+    best = run = 0
+    last = None
+    for k in sorted(ks):
+        run = run + 1 if last is not None and k == last + 1 else 1
+        best, last = max(best, run), k
+    return best
+
+
 def expected_frames(info: VideoInfo) -> int | None:
     if info.frame_count:
         return info.frame_count
@@ -865,6 +875,10 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")
+        if longest_run(model.cuts) >= 3:
+            notes.append("cuts on three or more frames in a row: a picture that moves by half a frame or more "
+                         "between frames looks like a cut to the tracker, and such frames are left uncorrected; "
+                         "check the clip")
     if model.unmeasured_pairs:
         ks = model.unmeasured_pairs
         notes.append(f"no motion could be measured between {len(ks)} frame pair(s) "

@@ -160,9 +160,9 @@ def correction_map(model: MotionModel, clock: RowClock, k: int, reference_line: 
         if np.any(slope >= -1e-3):
             frame = k if label is None else label
             raise RuntimeProblem(
-                f"frame {frame}: the picture moves vertically by more than a frame height per readout, "
-                "so no source row is unique and the frame cannot be corrected; check the readout and "
-                "the line order")
+                f"frame {frame}: the solved motion moves the picture down the frame faster than the rows "
+                "are read (more than a frame height per readout), so no source row is unique and the frame "
+                "cannot be corrected; check the readout and the line order, or the tracking of a very fast move")
         ys = ys - g / slope
         xs, y_seen = kind.to_image(table.evaluate(clock.row_time(k, ys)), world)
     xs, ys = _finite(xs), _finite(y_seen)

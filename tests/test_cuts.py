@@ -107,3 +107,13 @@ def test_near_black_frames_are_reported_unmeasured(joined):
     assert any("no motion could be measured" in note for note in result.notes), result.notes
     # the frames themselves are all still written, with their own timestamps (made here)
     assert result.frames_written == shots.n_frames
+
+
+def test_runs_of_cuts_are_counted_for_the_warning():
+    # common practice: real cuts are separated by whole shots; three in a row mean a motion the
+    # tracker cannot follow, which the notes then say
+    from skewfix.pipeline import longest_run
+
+    assert longest_run([29, 75, 136]) == 1
+    assert longest_run([5, 3, 4, 9, 10]) == 3
+    assert longest_run([]) == 0
