@@ -41,6 +41,7 @@ WEAK_SUPPORT = 0.4
 SUSPECT_WEIGHT = 0.25  # how much a once-rejected track counts for in support
 PRIOR_WEIGHT = 1.0
 PRIOR_TOLERANCE_PX = 3.0
+RIVAL_SHARE = 0.2  # a smooth rival motion this large makes a jump of the chain worth a warning
 
 
 @dataclass
@@ -86,7 +87,7 @@ def hypotheses(kind, p0: np.ndarray, p1: np.ndarray) -> list[Hypothesis]:
 
 def _jump(a: np.ndarray, b: np.ndarray, gap: int) -> float:
     """A displacement change in units of what a camera may do between pairs ``gap`` apart."""
-    tolerance = gap * (2.0 + 0.25 * max(np.hypot(*a), np.hypot(*b)))
+    tolerance = gap * (3.0 + 0.5 * max(np.hypot(*a), np.hypot(*b)))  # a whip pan's speed may double
     return float(np.hypot(*(a - b)) / tolerance)
 
 
@@ -161,7 +162,8 @@ def choose_background(kind, pairs, prior=None) -> BackgroundChoice:
             # a jump matters when the chain took it although another motion of the pair went on smoothly
             before, gap = hyps[i - 1][path[i - 1]].displacement, max(1, ks[i] - ks[i - 1])
             if _jump(before, hs[j].displacement, gap) > 1.0 and any(
-                    _jump(before, h.displacement, gap) <= 1.0 for m, h in enumerate(hs) if m != j):
+                    _jump(before, h.displacement, gap) <= 1.0 and h.mask.mean() >= RIVAL_SHARE
+                    for m, h in enumerate(hs) if m != j):
                 jumps.append(p.k)
     support_mean = float(np.mean(shares)) if shares else 0.0
     warning = ""
