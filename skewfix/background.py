@@ -41,6 +41,7 @@ WEAK_SUPPORT = 0.4
 SUSPECT_WEIGHT = 0.25  # how much a once-rejected track counts for in support
 PRIOR_WEIGHT = 1.0
 PRIOR_TOLERANCE_PX = 3.0
+SAME_MOTION = 0.5  # hypotheses closer than this many jump tolerances are one motion
 RIVAL_SHARE = 0.2  # a smooth rival motion this large makes a jump of the chain worth a warning
 
 
@@ -82,12 +83,22 @@ def hypotheses(kind, p0: np.ndarray, p1: np.ndarray) -> list[Hypothesis]:
         left &= ~mask
     if not out:  # nothing coherent: every track, as before
         out.append(Hypothesis(np.ones(n, bool), np.median(p1 - p0, axis=0)))
-    return out
+    # one motion that RANSAC split (a rolling shutter bends a fast pan's tracks apart by row) is
+    # one hypothesis: those whose displacements agree within half a jump tolerance are merged
+    merged: list[Hypothesis] = []
+    for h in out:
+        same = next((m for m in merged if _jump(m.displacement, h.displacement, 1) < SAME_MOTION), None)
+        if same is None:
+            merged.append(h)
+        else:
+            same.mask = same.mask | h.mask
+            same.displacement = np.median(p1[same.mask] - p0[same.mask], axis=0)
+    return merged
 
 
 def _jump(a: np.ndarray, b: np.ndarray, gap: int) -> float:
     """A displacement change in units of what a camera may do between pairs ``gap`` apart."""
-    tolerance = gap * (3.0 + 0.5 * max(np.hypot(*a), np.hypot(*b)))  # a whip pan's speed may double
+    tolerance = gap * (2.0 + 0.25 * max(np.hypot(*a), np.hypot(*b)))
     return float(np.hypot(*(a - b)) / tolerance)
 
 
@@ -150,6 +161,7 @@ def choose_background(kind, pairs, prior=None) -> BackgroundChoice:
         if not suspect:
             break
     weights, shares, jumps = [], [], []
+    forced = 0  # transitions where the chosen chain itself jumps
     for i, (p, hs, j) in enumerate(zip(pairs, hyps, path)):
         w = hs[j].mask.astype(np.float64)
         if p.ids is not None and suspect:
@@ -161,14 +173,17 @@ def choose_background(kind, pairs, prior=None) -> BackgroundChoice:
         if i > 0:
             # a jump matters when the chain took it although another motion of the pair went on smoothly
             before, gap = hyps[i - 1][path[i - 1]].displacement, max(1, ks[i] - ks[i - 1])
-            if _jump(before, hs[j].displacement, gap) > 1.0 and any(
+            size = _jump(before, hs[j].displacement, gap)
+            forced += size > 2.0  # beyond twice the tolerance: more than a whip pan's acceleration
+            if size > 1.0 and any(
                     _jump(before, h.displacement, gap) <= 1.0 and h.mask.mean() >= RIVAL_SHARE
                     for m, h in enumerate(hs) if m != j):
                 jumps.append(p.k)
     support_mean = float(np.mean(shares)) if shares else 0.0
     warning = ""
-    if pairs and (support_mean < WEAK_SUPPORT or jumps):
-        where = f"; it jumps {len(jumps)} time(s)" if jumps else ""
+    erratic = len(pairs) > 2 and forced > 0.25 * (len(pairs) - 1)
+    if pairs and (support_mean < WEAK_SUPPORT or jumps or erratic):
+        where = f"; it jumps {max(len(jumps), forced)} time(s)" if jumps or erratic else ""
         warning = (f"no motion consistent over time explains most tracks (on average {support_mean * 100:.0f} % "
                    f"of them{where}): a large subject may have been taken for the world, check the result")
     return BackgroundChoice(weights, support_mean, jumps, warning)

@@ -336,10 +336,12 @@ class StreamingWarper(FrameWarper):
         self.fit_settings = fit or FitSettings()
         self.model_request, self.lens = model_request, lens or LensSpec()
         self.choice: ModelChoice | None = None
-        if model_request == "similarity" or self.fit_settings.kind is not None:
+        if model_request == "similarity" or self.fit_settings.kind is not None or self.fit_settings.model == "translation":
             kind = self.fit_settings.kind_for(info.width, info.height)
-            self.choice = ModelChoice(kind, "asked for (--model similarity)" if model_request == "similarity"
-                                      else "given", {})
+            reason = ("asked for (translation only)" if self.fit_settings.model == "translation" and
+                      self.fit_settings.kind is None else
+                      "asked for (--model similarity)" if model_request == "similarity" else "given")
+            self.choice = ModelChoice(kind, reason, {})
         self.tracker = PairTracker(tracker)
         auto_window, auto_margin = window_for(info)
         self.window = window or auto_window

@@ -206,6 +206,10 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
         raise UsageProblem(f"--model must be one of {', '.join(MODELS)}, not {request!r}")
     settings = settings or FitSettings()
     height = clock.height
+    if settings.kind is not None:  # a caller that fixed the model keeps it
+        return ModelChoice(settings.kind, "given", {})
+    if settings.model == "translation":
+        return ModelChoice(settings.kind_for(width, height), "asked for (translation only)", {})
     similarity = make_kind("similarity", width, height)
     if request == "similarity":
         return ModelChoice(similarity, "asked for (--model similarity)", {})
