@@ -37,6 +37,7 @@ ROTATION_GAIN_UNSEEN = 0.8  # rotation's RMS misfit must be this share of the si
 SIMILARITY_GAIN_GIVEN = 0.9  # with a lens given, the similarity needs this share of the rotation's
 MAX_TRACKS_PER_PAIR = 120
 MAX_PAIRS = 40
+QUICK_PAIRS, QUICK_TRACKS = 16, 60  # the first look at which model fits
 FOCAL_RELATIVE_LIMIT = 0.10  # a focal length known worse than this (1 sigma) is "not observable"
 
 
@@ -108,19 +109,19 @@ def parse_lens(hfov: str | float | None = None, focal_length: str | None = None,
     return spec
 
 
-def _sample(pairs, seed: int = 0):
-    """At most MAX_PAIRS evenly chosen pairs of at most MAX_TRACKS_PER_PAIR tracks."""
+def _sample(pairs, max_pairs: int = MAX_PAIRS, max_tracks: int = MAX_TRACKS_PER_PAIR, seed: int = 0):
+    """At most ``max_pairs`` evenly chosen pairs of at most ``max_tracks`` tracks."""
     from skewfix.motion import PairObservations
 
     pairs = [p for p in pairs if not p.cut and len(p.p0) >= 8]
-    if len(pairs) > MAX_PAIRS:
-        pick = np.linspace(0, len(pairs) - 1, MAX_PAIRS).round().astype(int)
+    if len(pairs) > max_pairs:
+        pick = np.linspace(0, len(pairs) - 1, max_pairs).round().astype(int)
         pairs = [pairs[i] for i in pick]
     rng = np.random.default_rng(seed)
     out = []
     for p in pairs:
-        if len(p.p0) > MAX_TRACKS_PER_PAIR:
-            keep = np.sort(rng.choice(len(p.p0), MAX_TRACKS_PER_PAIR, replace=False))
+        if len(p.p0) > max_tracks:
+            keep = np.sort(rng.choice(len(p.p0), max_tracks, replace=False))
             p = PairObservations(p.k, p.p0[keep], p.p1[keep], p.cut)
         out.append(p)
     return out
@@ -223,10 +224,14 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
                                  f"{est.focal_px:.0f} ± {est.uncertainty_px:.0f} px", {"rotation": est.misfit_px})
     if len(sample) < 4:
         return ModelChoice(similarity, "too few tracked frame pairs to compare models", {})
-    sim_rms, _ = _misfit(sample, clock, width, similarity, settings)
+    # the comparisons need no precision: fewer pairs, tracks and knots (a few times cheaper)
+    look = _sample(pairs, QUICK_PAIRS, QUICK_TRACKS)
+    look_settings = replace(settings, knots_per_frame=min(settings.knots_per_frame, 2.0),
+                            iterations=min(settings.iterations, 3))
+    sim_rms, _ = _misfit(look, clock, width, similarity, look_settings)
     if lens.given:
         rotation = lens.rotation(width, height)
-        rot_rms, _ = _misfit(sample, clock, width, rotation, settings)
+        rot_rms, _ = _misfit(look, clock, width, rotation, look_settings)
         misfits = {"similarity": sim_rms, "rotation": rot_rms}
         if sim_rms < SIMILARITY_GAIN_GIVEN * rot_rms:
             return ModelChoice(similarity, f"the similarity fits better ({sim_rms:.2f} px against the lens's "
@@ -234,8 +239,8 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
         return ModelChoice(rotation, f"the lens is given and its rotation fits ({rot_rms:.2f} px RMS against "
                                      f"{sim_rms:.2f} px for the similarity)", misfits)
     # no lens: a quick look at a few fields of view before paying for the focal search
-    quick = {a: _misfit(sample, clock, width, lens.rotation(width, height, focal_from_hfov(width, a)), settings)[0]
-             for a in (60.0, 90.0, 120.0)}
+    quick = {a: _misfit(look, clock, width, lens.rotation(width, height, focal_from_hfov(width, a)),
+                        look_settings)[0] for a in (60.0, 90.0, 120.0)}
     best_quick = min(quick.values())
     misfits = {"similarity": sim_rms, **{f"rotation at {a:.0f} deg": v for a, v in quick.items()}}
     if best_quick > ROTATION_GAIN_UNSEEN * sim_rms:
@@ -247,7 +252,8 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
         return ModelChoice(similarity, "the focal length could not be measured from the footage, so the "
                                        "similarity is kept", misfits)
     rotation = lens.rotation(width, height, est.focal_px, focal_estimated=True, focal_uncertainty_px=est.uncertainty_px)
-    misfits["rotation"] = est.misfit_px
+    sim_rms, _ = _misfit(sample, clock, width, similarity, settings)  # compared on the same footing
+    misfits["similarity"], misfits["rotation"] = sim_rms, est.misfit_px
     if est.misfit_px > ROTATION_GAIN_UNSEEN * sim_rms:
         return ModelChoice(similarity, f"the rotation fits only a little better ({est.misfit_px:.2f} against "
                                        f"{sim_rms:.2f} px RMS), not enough for an estimated lens", misfits)
