@@ -278,7 +278,7 @@ class PairTracker:
         fwd, ok = self._follow(a, b, pts, guess, lk)
         # features lost from that guess get another try from each of the previous pair's main
         # motions (a subject and the world move differently; the seed may have followed either)
-        for motion in self._main_motions(seed):
+        for motion in (self._main_motions(seed) if (~ok).mean() > RETRY_LOST_SHARE else ()):
             lost = np.flatnonzero(~ok)
             if len(lost) == 0:
                 break
@@ -444,6 +444,7 @@ def spread_corners(img: np.ndarray, grid=(16, 9), per_cell: int = 2, threshold: 
     return pts[rank < per_cell]
 
 
+RETRY_LOST_SHARE = 0.15  # lose more than this share of the features and the rest get another guess
 MIN_SEPARATION = 4  # proxy px: a new corner this close to a followed feature would track the same thing
 
 
