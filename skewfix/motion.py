@@ -231,6 +231,19 @@ class PairObservations:
     method: str = "tracks"
 
 
+def thin_tracks(pairs: list[PairObservations], limit: int, seed: int = 0) -> list[PairObservations]:
+    """The pairs with at most ``limit`` tracks each (an even random choice, in order; the
+    tracks keep their ids), for searches that fit the same tracks many times."""
+    rng = np.random.default_rng(seed)
+    out = []
+    for p in pairs:
+        if len(p.p0) > limit:
+            keep = np.sort(rng.choice(len(p.p0), limit, replace=False))
+            p = PairObservations(p.k, p.p0[keep], p.p1[keep], p.cut, None if p.ids is None else p.ids[keep], p.method)
+        out.append(p)
+    return out
+
+
 def split_shots(n_frames: int, pairs: list[PairObservations]) -> list[tuple[int, int]]:
     """Frame ranges of the shots between detected cuts."""
     cut_after = sorted(p.k for p in pairs if p.cut)

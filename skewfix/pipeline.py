@@ -29,7 +29,7 @@ from skewfix.buffers import PlanePool
 from skewfix.decode import VideoInfo, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.models.choice import LensSpec, ModelChoice, choose_model
-from skewfix.motion import (FitSettings, MotionModel, MotionSegment, PairObservations, ShotCurves, fit_motion,
+from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion,
                             load_solver)
 from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings

@@ -23,7 +23,7 @@ import numpy as np
 
 from skewfix.errors import MeasurementRefused
 from skewfix.measure.result import ReadoutEstimate
-from skewfix.motion import FitSettings, PairObservations, fit_residual
+from skewfix.motion import FitSettings, fit_residual, thin_tracks
 from skewfix.rowclock import RowClock, clip_frame_interval
 
 SEARCH_SETTINGS = FitSettings(knots_per_frame=1.5, smoothness=0.02, iterations=4)
@@ -34,17 +34,6 @@ STEADY_MESSAGE = (
     "shot fits every readout equally well); use a shot whose motion changes, such as a whip pan that "
     "starts and stops or a handheld shot, or measure with --method flicker or --method pan"
 )
-
-
-def _thin(pairs: list[PairObservations], limit: int, seed: int = 0) -> list[PairObservations]:
-    rng = np.random.default_rng(seed)
-    out = []
-    for p in pairs:
-        if len(p.p0) > limit:
-            keep = np.sort(rng.choice(len(p.p0), limit, replace=False))
-            p = PairObservations(p.k, p.p0[keep], p.p1[keep], p.cut)
-        out.append(p)
-    return out
 
 
 def residual_curve(pairs, frame_times, height, width, signed_readouts, settings=SEARCH_SETTINGS, kind=None):
@@ -83,7 +72,7 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
             f"{info.path}: only {len(pairs)} frame pairs could be tracked; the motion method needs at "
             "least 6 consecutive trackable frames"
         )
-    pairs = _thin(pairs, MAX_TRACKS_PER_PAIR)
+    pairs = thin_tracks(pairs, MAX_TRACKS_PER_PAIR)
     lo = 0.0 if line_order == "top-down" else -interval
     hi = 0.0 if line_order == "bottom-up" else interval
     coarse = np.linspace(lo, hi, 21 if lo < 0 < hi else 13)

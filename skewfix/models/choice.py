@@ -111,20 +111,13 @@ def parse_lens(hfov: str | float | None = None, focal_length: str | None = None,
 
 def _sample(pairs, max_pairs: int = MAX_PAIRS, max_tracks: int = MAX_TRACKS_PER_PAIR, seed: int = 0):
     """At most ``max_pairs`` evenly chosen pairs of at most ``max_tracks`` tracks."""
-    from skewfix.motion import PairObservations
+    from skewfix.motion import thin_tracks
 
     pairs = [p for p in pairs if not p.cut and len(p.p0) >= 8]
     if len(pairs) > max_pairs:
         pick = np.linspace(0, len(pairs) - 1, max_pairs).round().astype(int)
         pairs = [pairs[i] for i in pick]
-    rng = np.random.default_rng(seed)
-    out = []
-    for p in pairs:
-        if len(p.p0) > max_tracks:
-            keep = np.sort(rng.choice(len(p.p0), max_tracks, replace=False))
-            p = PairObservations(p.k, p.p0[keep], p.p1[keep], p.cut)
-        out.append(p)
-    return out
+    return thin_tracks(pairs, max_tracks, seed)
 
 
 def _misfit(pairs, clock, width, kind: MotionKind, settings) -> tuple[float, int]:
