@@ -199,7 +199,7 @@ def model_text(result) -> str:
     """The model fix used, and any cuts or bridged pairs it found (none are in these clips)."""
     model = result.model
     kind = model.kind
-    text = kind.name
+    text = "translation" if getattr(kind, "translation_only", False) else kind.name
     if kind.name == "rotation":
         text = f"rotation f={kind.lens.focal_px:.1f} px ({'estimated' if kind.focal_estimated else 'given'})"
     if model.cuts:

@@ -150,14 +150,14 @@ def analysis_clock(analysis: Analysis, readout: float, line_order: str) -> RowCl
 
 
 def choose_for_analysis(analysis: Analysis, request: str, lens: LensSpec, readout: float, line_order: str,
-                        settings: FitSettings | None = None) -> ModelChoice:
+                        settings: FitSettings | None = None, allow_translation: bool = True) -> ModelChoice:
     """`skewfix.models.choice.choose_model` on an analysed clip at the given readout; a
     focal length that cannot be measured is refused naming the clip."""
     from skewfix.errors import MeasurementRefused
 
     clock = analysis_clock(analysis, readout, line_order)
     try:
-        return choose_model(request, analysis.pairs, clock, analysis.info.width, lens, settings)
+        return choose_model(request, analysis.pairs, clock, analysis.info.width, lens, settings, allow_translation)
     except MeasurementRefused as exc:
         raise MeasurementRefused(f"{analysis.info.path}: {exc}") from None
 
@@ -176,10 +176,10 @@ def choose_with_readout(analysis: Analysis, request: str, lens: LensSpec, readou
 
     if resolver is None:
         return readout, line_order, None, choose_for_analysis(analysis, request, lens, readout, line_order, settings)
-    chosen = choose_for_analysis(analysis, request, lens, 0.0, line_order, settings)
+    chosen = choose_for_analysis(analysis, request, lens, 0.0, line_order, settings, allow_translation=False)
     readout, line_order, origin = resolver(analysis, chosen.kind)
+    order = line_order if line_order in ("top-down", "bottom-up") else "top-down"
     if getattr(chosen.kind, "focal_estimated", False):
-        order = line_order if line_order in ("top-down", "bottom-up") else "top-down"
         try:
             again = choose_for_analysis(analysis, "rotation", lens, readout, order, settings)
             chosen = ModelChoice(again.kind, f"{chosen.reason}; focal length measured again at the readout found: "
@@ -187,6 +187,11 @@ def choose_with_readout(analysis: Analysis, request: str, lens: LensSpec, readou
         except MeasurementRefused:
             chosen = ModelChoice(chosen.kind, f"{chosen.reason}; the focal length found at no readout is kept "
                                               "(it could not be measured again)", chosen.misfits_px)
+    elif chosen.kind.name == "similarity" and request == "auto":
+        # with the rows timed right, roll and zoom may turn out to explain nothing
+        again = choose_for_analysis(analysis, request, lens, readout, order, settings)
+        if getattr(again.kind, "translation_only", False):
+            chosen = again
     return readout, line_order, origin, chosen
 
 

@@ -34,7 +34,8 @@ from skewfix.models.rotation import Rotation, focal_from_equivalent_mm, focal_fr
 
 MODELS = ("auto", "similarity", "rotation")
 ROTATION_GAIN_UNSEEN = 0.8  # rotation's RMS misfit must be this share of the similarity's (no lens given)
-SIMILARITY_GAIN_GIVEN = 0.9  # with a lens given, the similarity needs this share of the rotation's
+SIMILARITY_GAIN_GIVEN = 0.9
+TRANSLATION_GAIN = 1.05  # without roll and zoom the RMS misfit may be this much larger (two curves fewer)  # with a lens given, the similarity needs this share of the rotation's
 MAX_TRACKS_PER_PAIR = 120
 MAX_PAIRS = 40
 QUICK_PAIRS, QUICK_TRACKS = 16, 60  # the first look at which model fits
@@ -192,8 +193,13 @@ class ModelChoice:
     misfits_px: dict
 
 
-def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, settings=None) -> ModelChoice:
-    """The motion model for a clip: ``request`` is "auto", "similarity" or "rotation"."""
+def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, settings=None,
+                 allow_translation: bool = True) -> ModelChoice:
+    """The motion model for a clip: ``request`` is "auto", "similarity" or "rotation".
+
+    ``allow_translation=False`` keeps roll and zoom: for a first choice made before the
+    readout is known, when a wrong row timing makes the comparison unreliable.
+    """
     from skewfix.motion import FitSettings
 
     if request not in MODELS:
@@ -236,20 +242,32 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
                         look_settings)[0] for a in (60.0, 90.0, 120.0)}
     best_quick = min(quick.values())
     misfits = {"similarity": sim_rms, **{f"rotation at {a:.0f} deg": v for a, v in quick.items()}}
+    def flat(reason: str) -> ModelChoice:
+        """The similarity, or the plain translation when roll and zoom explain nothing."""
+        if not allow_translation:
+            return ModelChoice(similarity, reason, misfits)
+        translation = make_kind("similarity", width, height, translation_only=True)
+        shift_rms, _ = _misfit(look, clock, width, translation, look_settings)
+        misfits["translation"] = shift_rms
+        if shift_rms <= TRANSLATION_GAIN * sim_rms:
+            return ModelChoice(translation, f"{reason}; the camera only pans and tilts: without roll and zoom "
+                                            f"the fit is as good ({shift_rms:.2f} px RMS against {sim_rms:.2f})",
+                               misfits)
+        return ModelChoice(similarity, reason, misfits)
+
     if best_quick > ROTATION_GAIN_UNSEEN * sim_rms:
-        return ModelChoice(similarity, f"no sign of a wide lens turning: the similarity fits as well "
-                                       f"({sim_rms:.2f} px RMS; a rotation at best {best_quick:.2f} px)", misfits)
+        return flat(f"no sign of a wide lens turning: the similarity fits as well "
+                    f"({sim_rms:.2f} px RMS; a rotation at best {best_quick:.2f} px)")
     try:
         est = estimate_focal(sample, clock, width, lens, settings)
     except MeasurementRefused:
-        return ModelChoice(similarity, "the focal length could not be measured from the footage, so the "
-                                       "similarity is kept", misfits)
+        return flat("the focal length could not be measured from the footage, so the similarity is kept")
     rotation = lens.rotation(width, height, est.focal_px, focal_estimated=True, focal_uncertainty_px=est.uncertainty_px)
     sim_rms, _ = _misfit(sample, clock, width, similarity, settings)  # compared on the same footing
     misfits["similarity"], misfits["rotation"] = sim_rms, est.misfit_px
     if est.misfit_px > ROTATION_GAIN_UNSEEN * sim_rms:
-        return ModelChoice(similarity, f"the rotation fits only a little better ({est.misfit_px:.2f} against "
-                                       f"{sim_rms:.2f} px RMS), not enough for an estimated lens", misfits)
+        return flat(f"the rotation fits only a little better ({est.misfit_px:.2f} against "
+                    f"{sim_rms:.2f} px RMS), not enough for an estimated lens")
     return ModelChoice(rotation, f"a wide lens turning: the rotation fits {est.misfit_px:.2f} px RMS against "
                                  f"{sim_rms:.2f} px for the similarity; focal length measured from the footage, "
                                  f"{est.focal_px:.0f} ± {est.uncertainty_px:.0f} px "
