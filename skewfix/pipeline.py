@@ -446,9 +446,10 @@ class StreamingWarper(FrameWarper):
         """Pick the motion model from the first frames' tracks (see the class docstring)."""
         from skewfix.errors import MeasurementRefused
 
+        upto = min(observed, self.decide_frames)  # always the same frames, however the threads ran
         with self._cond:
-            times = np.asarray(self.frame_times[:observed])
-            pairs = [p for k, p in self._pairs.items() if k < observed - 1]
+            times = np.asarray(self.frame_times[:upto])
+            pairs = [p for k, p in self._pairs.items() if k < upto - 1]
         clock = RowClock(times, self.info.height, self.readout, self.line_order)
         try:
             self.choice = choose_model(self.model_request, pairs, clock, self.info.width, self.lens,
