@@ -204,8 +204,19 @@ def test_the_command_line_reports_the_rotation_model(wide_clip, tmp_path, capsys
     src, clip = wide_clip
     code, err = run_cli(capsys, "fix", src, tmp_path / "out.mp4", "--readout", "24ms", "--model", "rotation",
                         "--hfov", "90", "--report", tmp_path / "r.html", "--save-motion-csv", tmp_path / "m.csv",
-                        "--quiet")
+                        "--save-maps", tmp_path / "maps", "--save-matte", tmp_path / "matte.%04d.png", "--quiet")
     assert code == 0, err
+    n = len(clip.frames)
+    assert len(list((tmp_path / "maps").glob("correct_map.*.tif"))) == n
+    assert len(list((tmp_path / "maps").glob("reskew_map.*.tif"))) == n
+    assert len(list(tmp_path.glob("matte.*.png"))) == n
+    # the saved map moves pixels the way the rotation does: at the sweep's fastest frame the map is
+    # far from the identity, and its x displacement grows towards the edges of the 90-degree view
+    k = n // 2
+    m = cv2.imread(str(tmp_path / "maps" / f"correct_map.{k + 1:04d}.tif"), cv2.IMREAD_UNCHANGED)
+    dx = m[..., 2] - np.arange(W)[None, :]
+    row = H // 4  # a row read well before the reference row
+    assert abs(dx[row, 5] - dx[row, W // 2]) > 0.2 and abs(dx[row, W // 2]) > 1.0
     assert "motion model: 3-D rotation, focal length 240.0 px (given; 90.0° horizontal view)" in err
     page = (tmp_path / "r.html").read_text()
     assert "motion model" in page and "3-D rotation" in page
