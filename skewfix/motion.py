@@ -136,10 +136,6 @@ class ShotCurves:
                              self.spacing, self.coefficients)
 
 
-def default_kind(width: int, height: int) -> MotionKind:
-    return make_kind("similarity", width, height)
-
-
 @dataclass
 class MotionModel:
     """The whole clip's motion: one `MotionSegment` per shot, the model that reads
@@ -161,7 +157,7 @@ class MotionModel:
 
     def __post_init__(self):
         if self.kind is None:
-            self.kind = default_kind(self.width, self.height)
+            self.kind = make_kind("similarity", self.width, self.height)
 
     @property
     def centre(self):
@@ -405,7 +401,9 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
     anchor_m = sp.csr_matrix(np.array(anchor_rows)) if anchor_rows else None
     anchor_t = np.array(anchor_target)
 
-    guess = kind.initial_frame_values(usable, clock, first, last, anchor_values)
+    # the start for a non-linear model comes from the world's tracks only, not a subject's
+    world_pairs = [PairObservations(p.k, p.p0[w > 0], p.p1[w > 0]) for p, w in zip(usable, background.weights)]
+    guess = kind.initial_frame_values(world_pairs, clock, first, last, anchor_values)
     if guess is not None:
         times, values = guess
         coef[:] = _spline_from_samples(times, values, seg, pen_one)
