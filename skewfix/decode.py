@@ -14,7 +14,6 @@ import os
 import threading
 from dataclasses import dataclass, field
 from fractions import Fraction
-from pathlib import Path
 from typing import Iterator
 
 import numpy as np

@@ -142,7 +142,7 @@ def test_preview_still_is_closer_to_the_truth_after(whip, tmp_path, capsys):
 def test_crop_border_reports_the_skew_of_the_motion_not_of_the_enlargement(whip, tmp_path, monkeypatch):
     """With --border crop the rendered maps also enlarge the picture; the report's skew per
     frame must be the motion's alone, the same as without the crop (a crop is no skew)."""
-    from skewfix.cli.plates import FixDeliverables
+    from skewfix.cli.deliverables import FixDeliverables
 
     seen = {}
 
@@ -164,24 +164,24 @@ def test_report_still_shows_the_input_frame_it_names(clip_factory, tmp_path, mon
     """The 'as shot' half of the still is kept from the render (not decoded again) and must be
     exactly that input frame, although the render reuses its buffers (common practice). The
     clip is long enough for the still frame's buffers to be reused before the end."""
-    import skewfix.cli.plates as plates
+    import skewfix.cli.deliverables as deliverables
 
     whip = clip_factory("whip", READOUT_MS / 1000, n_frames=100)
     shown = {}
-    original = plates.still_png
+    original = deliverables.still_png
 
     def capture(before, after):
         shown["before"] = before
         return original(before, after)
 
-    monkeypatch.setattr(plates, "still_png", capture)
+    monkeypatch.setattr(deliverables, "still_png", capture)
     page = tmp_path / "r.html"
     assert main(["fix", str(whip[0]), str(tmp_path / "f.mp4"), "--readout", f"{READOUT_MS}ms",
                  "--report", str(page), "--quiet"]) == 0
     k = int(re.search(r"Before and after \(frame (\d+)\)", page.read_text(encoding="utf-8")).group(1))
-    frame = plates.decoded_frame_at(str(whip[0]), None, k)
+    frame = deliverables.decoded_frame_at(str(whip[0]), None, k)
     from skewfix.decode import open_source
 
     with open_source(str(whip[0])) as source:
         info = source.info
-    assert np.array_equal(shown["before"], plates.planes_to_rgb(frame.planes, frame.pix_fmt, info, 8))
+    assert np.array_equal(shown["before"], deliverables.planes_to_rgb(frame.planes, frame.pix_fmt, info, 8))

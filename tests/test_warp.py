@@ -3,7 +3,6 @@
 from fractions import Fraction
 
 import numpy as np
-import pytest
 from scipy import ndimage
 from skimage import data
 

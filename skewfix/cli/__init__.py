@@ -44,7 +44,7 @@ def _on_terminate(signum, frame):  # SIGTERM behaves like Ctrl-C: partial output
 def _register_commands():
     from skewfix.cli import fix as _fix  # noqa: F401
     from skewfix.cli import demo as _demo  # noqa: F401
-    for name in ("measure", "plates", "batch", "cameras"):
+    for name in ("measure", "reskew", "preview", "batch", "cameras"):
         try:
             __import__(f"skewfix.cli.{name}")
         except ModuleNotFoundError as exc:

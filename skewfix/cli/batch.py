@@ -8,7 +8,7 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.fix import distortion_option, focal_option, hfov_option, model_option
+from skewfix.cli.options import distortion_option, focal_option, hfov_option, model_option
 from skewfix.errors import UsageProblem
 
 

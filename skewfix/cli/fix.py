@@ -8,54 +8,10 @@ import typer
 
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
+from skewfix.cli.options import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
 from skewfix.cli.progress import TerminalProgress
-from skewfix.errors import UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
-
-def choice(value: str, allowed, option: str) -> str:
-    if value not in allowed:
-        raise UsageProblem(f"{option} must be one of {', '.join(allowed)}, not {value!r}")
-    return value
-
-
-# The motion model and lens options, shared by fix, measure, preview and batch.
-MODEL_HELP = ("Motion model: auto (default: the similarity unless a wide lens turning is seen), "
-              "similarity (pan, tilt, roll, zoom of the picture) or rotation (a camera turning "
-              "about its centre, through a lens).")
-HFOV_HELP = "Horizontal field of view of the stored frame, degrees (the lens for the rotation model)."
-FOCAL_HELP = ("Focal length of the lens: 26mm or 1450px; mm is the 35 mm-equivalent figure phone "
-              "makers quote, px is in pixels of the stored frame.")
-DISTORTION_HELP = "Radial lens distortion K1 or K1,K2 (Brown–Conrady, OpenCV's convention)."
-
-
-def model_option(default: Optional[str] = "auto"):
-    return typer.Option(default, "--model", help=MODEL_HELP)
-
-
-def hfov_option():
-    return typer.Option(None, "--hfov", metavar="DEG", help=HFOV_HELP)
-
-
-def focal_option():
-    return typer.Option(None, "--focal-length", metavar="26mm|1450px", help=FOCAL_HELP)
-
-
-def distortion_option():
-    return typer.Option(None, "--lens-distortion", metavar="K1[,K2]", help=DISTORTION_HELP)
-
-
-def model_and_lens(model: str, hfov: Optional[str], focal_length: Optional[str],
-                   distortion: Optional[str]):
-    """``--model`` checked against the known models, and the lens options as a `LensSpec`
-    (None when no lens option was given); `UsageProblem` naming the option otherwise."""
-    from skewfix.models.choice import MODELS, parse_lens
-
-    choice(model, MODELS, "--model")
-    if hfov is None and focal_length is None and distortion is None:
-        return model, None
-    return model, parse_lens(hfov, focal_length, distortion)
-
 
 @app.command("fix")
 def fix_command(
@@ -98,7 +54,7 @@ def fix_command(
     OUTPUT may be a numbered sequence (plate.%04d.tif, PNG or TIFF): frames are
     numbered like an input sequence, or from 1 for a video input.
     """
-    from skewfix.cli.plates import FixDeliverables
+    from skewfix.cli.deliverables import FixDeliverables
     from skewfix.pipeline import FixOptions, fix_clip
 
     if line_order is not None:

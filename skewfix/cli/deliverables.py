@@ -1,10 +1,6 @@
-"""Plate deliverables: `skewfix reskew`, `skewfix preview`, and the extra outputs of `fix`.
+"""The extra outputs of `fix`, and helpers the plate commands share.
 
-* ``reskew`` puts the rolling shutter described by a saved motion file back
-  onto a clean clip or sequence (CG, a corrected plate) of the same size and
-  frame count.
-* ``preview`` writes one before/after still, rendering only that frame.
-* `FixDeliverables` writes what ``fix --save-motion/--save-motion-csv/
+`FixDeliverables` writes what ``fix --save-motion/--save-motion-csv/
   --save-maps/--save-matte/--report`` ask for, each whole or not at all.
 
 Warp maps (``--save-maps DIR``) are 32-bit float TIFFs, one pair per frame:
@@ -26,21 +22,14 @@ import os
 import tempfile
 from dataclasses import replace
 from pathlib import Path
-from typing import Optional
 
 import numpy as np
-import typer
 
-from skewfix.cli import app
-from skewfix.cli.fix import distortion_option, focal_option, hfov_option, model_and_lens, model_option
-from skewfix.cli.progress import TerminalProgress
-from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
+from skewfix.errors import InputError, UsageProblem
 from skewfix.sequence import (DEPTHS, VIDEO_FIRST_NUMBER, FramePattern, StagedSequence, check_sequence_output,
                               is_pattern, open_sink, parse_pattern, planes_to_rgb)
 
 MAP_NAMES = ("correct_map", "reskew_map")
-RESKEW_BORDERS = ("edge", "black")
 
 
 # --------------------------------------------------------------------------
@@ -85,7 +74,7 @@ def check_output_options(output: str, sink_options: dict) -> None:
 
     ``sink_options``: ``codec``, ``crf``, ``preset`` and ``depth`` as given (None when not).
     """
-    from skewfix.cli.fix import choice
+    from skewfix.cli.options import choice
     from skewfix.encode import CODECS
 
     codec, crf, depth = (sink_options.get(key) for key in ("codec", "crf", "depth"))
@@ -297,145 +286,3 @@ class FixDeliverables:
     def discard(self) -> None:
         for staged in list(self._maps.values()) + ([self._matte] if self._matte else []):
             staged.discard()
-
-
-# --------------------------------------------------------------------------
-# reskew
-# --------------------------------------------------------------------------
-
-@app.command("reskew")
-def reskew_command(
-    input: str = typer.Argument(..., help="Clean clip or numbered sequence (CG, a corrected plate)."),
-    output: str = typer.Argument(..., help="Where to write the clip or sequence with the rolling shutter put back."),
-    motion: str = typer.Option(..., "--motion", "-m", help="Motion file written by 'fix --save-motion'."),
-    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 for video output "
-                                                               "(default: as the input)."),
-    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
-    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of a sequence input "
-                                                           "(default: the motion file's)."),
-    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for sequence output "
-                                                               "(default: as the input; deeper than 8 goes to 16)."),
-    border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge or black."),
-    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
-):
-    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
-    from skewfix.cli.fix import choice
-    from skewfix.rowclock import parse_rate
-    from skewfix.decode import open_source
-    from skewfix.encode import DeferredSink, check_output_path
-    from skewfix.motionfile import load_motion
-    from skewfix.pipeline import FrameWarper, RenderSettings, render
-
-    choice(border, RESKEW_BORDERS, "--border")
-    check_output_options(output, {"codec": codec, "crf": crf, "depth": depth})
-    model, clock, reference_line, meta = load_motion(motion)
-    check_output_path(input, output, force)
-    if is_pattern(output):
-        check_sequence_output(input, output, force)
-    check_distinct_outputs(input, {"OUTPUT": output, "--motion": motion})
-    rate = parse_rate(fps) or meta["frame_rate"]
-    if is_pattern(input) and rate is None:
-        raise UsageProblem(f"{input}: give the sequence's frame rate with --fps (the motion file has none)")
-    source = open_source(input, rate)  # opened once: checked here, then streamed by the render
-    try:
-        info = source.info
-        if (info.width, info.height) != (model.width, model.height):
-            raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
-                             f"{model.width}x{model.height} frames; reskew needs the same size")
-        expected = len(clock.frame_times)
-        found = count_frames(input, info)
-        if found != expected:
-            raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
-                             "reskew needs the same frame count")
-    except BaseException:
-        source.close()
-        raise
-    warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
-
-    def open_output():
-        # with the first picture, when the first frame has told the display rotation
-        with source.io_lock:  # the decoding thread may be demuxing the template
-            return open_sink(input, output, source.info, codec=codec, crf=crf, depth=depth, force=force,
-                             template=getattr(source, "container", None))
-
-    sink = DeferredSink(open_output)
-    try:
-        with TerminalProgress(quiet) as progress:
-            written = render(input, sink, warper, rate, progress, source=source)
-        if written != expected:
-            raise RuntimeProblem(f"{input}: {written} frames could be read of {expected}; nothing was written")
-        sink.finish()
-    except BaseException:
-        sink.abort()
-        raise
-    for note in sink.notes:
-        typer.echo(f"note: {note}", err=True)
-    if not quiet:
-        typer.echo(f"rolling shutter put back ({clock.readout * 1e3:.3f} ms, {clock.line_order}); "
-                   f"wrote {written} frames to {output}", err=True)
-
-
-# --------------------------------------------------------------------------
-# preview
-# --------------------------------------------------------------------------
-
-@app.command("preview")
-def preview_command(
-    clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
-    readout: str = typer.Option(..., "--readout", "-r", help="Readout time (18.5ms, 0.0185s, 18500us), "
-                                                              "'auto', or a saved camera's name."),
-    frame: int = typer.Option(0, "--frame", "-n", help="Frame to show, counted from 0 (for a sequence: "
-                                                        "from its first file)."),
-    out: str = typer.Option(..., "--out", "-o", help="PNG file for the before/after still."),
-    line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
-    reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
-    border: str = typer.Option("edge", "--border", help="edge, black or crop."),
-    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
-    force: bool = typer.Option(False, "--force", help="Replace OUT if it exists."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
-    model: str = model_option(),
-    hfov: Optional[str] = hfov_option(),
-    focal_length: Optional[str] = focal_option(),
-    lens_distortion: Optional[str] = distortion_option(),
-):
-    """Write a before/after still of one frame, with straight reference lines over both halves."""
-    from skewfix.cameras import plan_readout
-    from skewfix.cli.fix import choice
-    from skewfix.rowclock import parse_rate
-    from skewfix.files import write_whole
-    from skewfix.motionfile import check_new_file
-    from skewfix.pipeline import FrameWarper, RenderSettings, analyse
-    from skewfix.warp import BORDERS
-
-    if line_order is not None:
-        choice(line_order, LINE_ORDERS, "--line-order")
-    choice(reference_line, REFERENCE_LINES, "--reference-line")
-    choice(border, BORDERS, "--border")
-    if Path(out).suffix.lower() != ".png":
-        raise UsageProblem(f"--out {out}: the still is written as PNG; give a .png name")
-    if frame < 0:
-        raise UsageProblem(f"--frame must be 0 or more, not {frame}")
-    check_new_file(out, force, "--out")
-    check_distinct_outputs(clip, {"--out": out})
-    rate = parse_rate(fps)
-    request, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
-    plan = plan_readout(readout, line_order, lens)
-    with TerminalProgress(quiet) as progress:
-        analysis = analyse(clip, rate, progress=progress)
-    if frame >= analysis.n_frames:
-        raise InputError(f"{clip}: has {analysis.n_frames} frames (0 to {analysis.n_frames - 1}); "
-                         f"there is no frame {frame}")
-    clock, solved = solve_with_model(analysis, plan, request)
-    warper = FrameWarper(solved, clock, RenderSettings(reference_line, border), analysis.info)
-    before = decoded_frame_at(clip, rate, frame)
-    after, _ = warper.apply(frame, before.planes, before.subsampling)
-    info = analysis.info
-    png = still_png(planes_to_rgb(before.planes, before.pix_fmt, info, 8),
-                    planes_to_rgb(after, before.pix_fmt, info, 8))
-    write_whole(out, png)
-    typer.echo(f"note: motion model: {solved.kind.summary()}"
-               + (f" ({solved.model_reason})" if solved.model_reason else ""), err=True)
-    if not quiet:
-        typer.echo(f"wrote {out} (frame {frame}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
-                   err=True)

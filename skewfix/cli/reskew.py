@@ -1,0 +1,89 @@
+"""`skewfix reskew`: put the rolling shutter of a saved motion file back onto a clean clip or
+sequence (CG, a corrected plate) of the same size and frame count."""
+
+from __future__ import annotations
+
+from typing import Optional
+
+import typer
+
+from skewfix.cli import app
+from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
+from skewfix.cli.options import choice
+from skewfix.cli.progress import TerminalProgress
+from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+from skewfix.sequence import check_sequence_output, is_pattern, open_sink
+
+RESKEW_BORDERS = ("edge", "black")
+
+
+@app.command("reskew")
+def reskew_command(
+    input: str = typer.Argument(..., help="Clean clip or numbered sequence (CG, a corrected plate)."),
+    output: str = typer.Argument(..., help="Where to write the clip or sequence with the rolling shutter put back."),
+    motion: str = typer.Option(..., "--motion", "-m", help="Motion file written by 'fix --save-motion'."),
+    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 for video output "
+                                                               "(default: as the input)."),
+    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
+    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of a sequence input "
+                                                           "(default: the motion file's)."),
+    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for sequence output "
+                                                               "(default: as the input; deeper than 8 goes to 16)."),
+    border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge or black."),
+    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+):
+    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
+    from skewfix.rowclock import parse_rate
+    from skewfix.decode import open_source
+    from skewfix.encode import DeferredSink, check_output_path
+    from skewfix.motionfile import load_motion
+    from skewfix.pipeline import FrameWarper, RenderSettings, render
+
+    choice(border, RESKEW_BORDERS, "--border")
+    check_output_options(output, {"codec": codec, "crf": crf, "depth": depth})
+    model, clock, reference_line, meta = load_motion(motion)
+    check_output_path(input, output, force)
+    if is_pattern(output):
+        check_sequence_output(input, output, force)
+    check_distinct_outputs(input, {"OUTPUT": output, "--motion": motion})
+    rate = parse_rate(fps) or meta["frame_rate"]
+    if is_pattern(input) and rate is None:
+        raise UsageProblem(f"{input}: give the sequence's frame rate with --fps (the motion file has none)")
+    source = open_source(input, rate)  # opened once: checked here, then streamed by the render
+    try:
+        info = source.info
+        if (info.width, info.height) != (model.width, model.height):
+            raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
+                             f"{model.width}x{model.height} frames; reskew needs the same size")
+        expected = len(clock.frame_times)
+        found = count_frames(input, info)
+        if found != expected:
+            raise InputError(f"{input}: has {found} frames but the motion in {motion} covers {expected}; "
+                             "reskew needs the same frame count")
+    except BaseException:
+        source.close()
+        raise
+    warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
+
+    def open_output():
+        # with the first picture, when the first frame has told the display rotation
+        with source.io_lock:  # the decoding thread may be demuxing the template
+            return open_sink(input, output, source.info, codec=codec, crf=crf, depth=depth, force=force,
+                             template=getattr(source, "container", None))
+
+    sink = DeferredSink(open_output)
+    try:
+        with TerminalProgress(quiet) as progress:
+            written = render(input, sink, warper, rate, progress, source=source)
+        if written != expected:
+            raise RuntimeProblem(f"{input}: {written} frames could be read of {expected}; nothing was written")
+        sink.finish()
+    except BaseException:
+        sink.abort()
+        raise
+    for note in sink.notes:
+        typer.echo(f"note: {note}", err=True)
+    if not quiet:
+        typer.echo(f"rolling shutter put back ({clock.readout * 1e3:.3f} ms, {clock.line_order}); "
+                   f"wrote {written} frames to {output}", err=True)
