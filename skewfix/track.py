@@ -4,7 +4,9 @@ Each frame's luma is reduced to a proxy (longest side at most
 ``proxy_size``). Between consecutive proxies we
 
 1. seed the global shift with phase correlation (Kuglin & Hines, 1975), so
-   that whip pans of well over 100 px per frame are caught;
+   that whip pans of well over 100 px per frame are caught; a shift of more
+   than half the frame, which the DFT's periodicity folds back with the wrong
+   sign, is told from its alias by how well the overlaps correlate;
 2. refine corner features (FAST corners, Rosten & Drummond, 2006, kept
    evenly spread by taking the strongest few in each cell of a grid) with
    pyramidal Lucas-Kanade (Bouguet, 2000), starting from the seed;
@@ -88,6 +90,9 @@ class TrackerSettings:
     cut_seed_response: float = 0.35  # a quarter-size peak below this may be a cut (blur alone can do it)
     history: int = 8  # recent pairs that the cut tests are judged against
     agree: float = 2.0  # proxy px: fewer than ``retry_below`` tracks must agree this well with the whole frame
+    # a correlation coefficient of the two frames' overlap, at the seed's shift, above which they
+    # show the same picture (never a cut); unrelated pictures score about 0.1 here
+    same_picture: float = 0.7
 
 
 class _Frame:
@@ -172,9 +177,10 @@ class PairTracker:
     def _measure(self, k: int, prev: _Frame, cur: _Frame) -> PairObservations:
         s = self.settings
         (dx, dy), seed_response = _phase(prev.quarter, cur.quarter)
+        (dx, dy), overlap_match = unaliased_shift(prev.quarter, cur.quarter, (dx, dy))
         seed = (dx * prev.quarter_scale[0], dy * prev.quarter_scale[1])
         hist_distance = cv2.compareHist(prev.histogram, cur.histogram, cv2.HISTCMP_BHATTACHARYYA)
-        if self._looks_like_cut(prev, cur, hist_distance, seed_response):
+        if overlap_match < s.same_picture and self._looks_like_cut(prev, cur, hist_distance, seed_response):
             return self._unmeasured(k, cut=True)
         p0, p1, ids = self._track(prev, cur, seed, prev.threshold, s.per_cell, s.window)
         if len(p0) < s.retry_below:
@@ -189,7 +195,8 @@ class PairTracker:
         has_detail = prev.contrast >= s.min_contrast and cur.contrast >= s.min_contrast
         if has_detail:
             (gx, gy), response = _phase(prev.half, cur.half)
-            if response >= s.peak_response:
+            (gx, gy), _ = unaliased_shift(prev.half, cur.half, (gx, gy))
+            if response >= s.peak_response or overlap_match >= s.same_picture:
                 shift = whole_frame_shift(prev.proxy, cur.proxy, (gx * prev.half_scale[0], gy * prev.half_scale[1]))
         if len(p0) >= s.min_tracks and (shift is None or np.hypot(*(np.median(p1 - p0, 0) - shift)) < s.agree):
             return self._tracks(k, p0, p1, ids, hist_distance, seed_response)
@@ -521,6 +528,55 @@ def whole_frame_shift(prev: np.ndarray, cur: np.ndarray, guess) -> tuple[float, 
             return None
         shift = np.array([warp[0, 2] * sx, warp[1, 2] * sy])
     return (float(shift[0]), float(shift[1])) if rho >= ECC_MIN else None
+
+
+def overlap_correlation(prev: np.ndarray, cur: np.ndarray, shift, search: int = 0) -> tuple[float, tuple[float, float]]:
+    """How well ``cur`` shows ``prev`` shifted by about ``shift`` (``cur(x + dx) ~ prev(x)``).
+
+    The correlation coefficient of the two pictures' overlap (cv2.matchTemplate,
+    TM_CCOEFF_NORMED), best over whole-px offsets within ``search`` px of the
+    shift. Returns (coefficient, the shift it was found at); -1 when the overlap
+    is under a fifth of either axis.
+    """
+    h, w = prev.shape[:2]
+    dx, dy = (int(round(v)) for v in shift)
+    x0, x1 = max(0, -dx) + search, w - max(0, dx) - search
+    y0, y1 = max(0, -dy) + search, h - max(0, dy) - search
+    if x1 - x0 < 0.2 * w or y1 - y0 < 0.2 * h:
+        return -1.0, (float(shift[0]), float(shift[1]))
+    template = prev[y0:y1, x0:x1]
+    region = cur[y0 + dy - search:y1 + dy + search, x0 + dx - search:x1 + dx + search]
+    scores = cv2.matchTemplate(region, template, cv2.TM_CCOEFF_NORMED)
+    _, best, _, (i, j) = cv2.minMaxLoc(scores)
+    if not np.isfinite(best):
+        return -1.0, (float(shift[0]), float(shift[1]))
+    if (i, j) == (search, search):
+        return float(best), (float(shift[0]), float(shift[1]))
+    return float(best), (float(dx + i - search), float(dy + j - search))
+
+
+def unaliased_shift(prev: np.ndarray, cur: np.ndarray, shift, search: int = 3) -> tuple[tuple[float, float], float]:
+    """The shift that phase correlation reported, or the alias of it that the pictures support.
+
+    The DFT is periodic, so phase correlation reports a shift ``d`` along an
+    axis of ``n`` px only modulo ``n``, in [-n/2, n/2): a tilt or pan of more
+    than half the frame between frames comes back with the wrong sign. Where a
+    component exceeds a quarter of its axis, its alias ``d - n sign(d)`` is
+    tried too, and the candidate whose overlaps correlate best
+    (`overlap_correlation`, best within ``search`` px of each candidate: a peak
+    found on a small overlap is often a few px off) is kept.
+    Returns (shift, its overlap correlation).
+    """
+    h, w = prev.shape[:2]
+    xs, ys = [float(shift[0])], [float(shift[1])]
+    if abs(shift[0]) > w / 4:
+        xs.append(xs[0] - np.sign(xs[0]) * w)
+    if abs(shift[1]) > h / 4:
+        ys.append(ys[0] - np.sign(ys[0]) * h)
+    reach = search if len(xs) + len(ys) > 2 else 0
+    scored = [overlap_correlation(prev, cur, (x, y), reach) for x in xs for y in ys]
+    best, chosen = max(scored, key=lambda item: item[0])
+    return chosen, best
 
 
 def _even_crop(img: np.ndarray) -> np.ndarray:

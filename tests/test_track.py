@@ -7,7 +7,7 @@ from scipy import ndimage
 from skimage import data
 from skimage.registration import phase_cross_correlation
 
-from skewfix.track import PairTracker, chained_features, phase_shift, spread_corners
+from skewfix.track import PairTracker, TrackerSettings, chained_features, phase_shift, spread_corners
 
 
 @pytest.mark.parametrize("name,shift", [("camera", (37.0, -12.0)), ("astronaut", (-61.0, 8.0)),
@@ -33,6 +33,28 @@ def test_shift_agrees_with_scikit_image(name, shift):
     # skimage's estimate is quantised to 1/20 px and slightly biased: agree to 0.15 px
     assert abs(d[0] - ref_dx) < 0.15 and abs(d[1] - ref_dy) < 0.15
     assert abs(d[0] - dx) < 0.1 and abs(d[1] - dy) < 0.1  # and to the applied shift itself
+
+
+
+@pytest.mark.parametrize("shift", [(0.0, -0.55), (0.0, 0.55), (-0.6, 0.0), (0.6, 0.1), (0.3, -0.4)])
+def test_shifts_beyond_half_the_frame_are_not_folded_back(shift):
+    """A tilt or whip pan of more than half the frame between frames (a fast tilt read against
+    the motion stretches the picture that far): phase correlation alone reports such a shift
+    modulo the frame size, with the wrong sign (the DFT's periodicity, common practice).
+    Two windows on scikit-image's astronaut photograph (enlarged twice), one moved by that share."""
+    img = cv2.resize(cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2GRAY), (1024, 1024),
+                     interpolation=cv2.INTER_CUBIC)
+    h, w = 270, 480
+    dx, dy = int(round(shift[0] * w)), int(round(shift[1] * h))
+    x0, y0 = int(512 - w / 2 - dx / 2), int(512 - h / 2 - dy / 2)
+    a = img[y0:y0 + h, x0:x0 + w]
+    b = img[y0 + dy:y0 + dy + h, x0 + dx:x0 + dx + w]  # the view moved by (dx, dy): the picture by -(dx, dy)
+    tracker = PairTracker()
+    tracker.push(a)
+    obs = tracker.push(b)
+    assert not obs.cut and len(obs.p0) >= TrackerSettings().min_tracks
+    d = np.median(obs.p1 - obs.p0, axis=0)
+    assert abs(d[0] + dx) < 0.1 and abs(d[1] + dy) < 0.1
 
 
 def test_black_frames_give_no_tracks_and_no_cut():

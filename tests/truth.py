@@ -559,6 +559,18 @@ class PlanarClip(ShutterClip):
         return max(float(np.max(np.sum(np.hypot(np.diff(x, axis=1), np.diff(y, axis=1)), axis=1)))
                    for x, y in self._image_tracks(rows, exposure))
 
+    def unseen_mask(self, k: int, t: float, margin: int = 4) -> np.ndarray:
+        """Bool (H, W): rows of ``global_view(t)`` that frame ``k`` never saw, plus ``margin`` rows.
+
+        A tilt read against the motion stretches the picture, so the frame sees fewer world rows
+        than it has: a correction can only fill the rest from its border. World row of stored
+        row y read at time t_y is y + pan_y(t_y) (the rendering formula in ``_sample``).
+        """
+        seen = self.ys + np.asarray(self.pan_path(self.row_times(k))[1], np.float64)
+        wanted = self.ys + float(self.pan_path(t)[1])
+        rows = (wanted < seen.min() + margin) | (wanted > seen.max() - margin)
+        return np.broadcast_to(rows[:, None], (self.height, self.width)).copy()
+
     def subject_mask(self, t: float, dilate: int = 3, exposure: float | None = None) -> np.ndarray:
         """Bool (H, W): pixels the subject touches in ``global_view(t)``, dilated by ``dilate`` px."""
         mask = np.zeros((self.height, self.width), bool)
