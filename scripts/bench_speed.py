@@ -14,12 +14,17 @@ one four times longer, and the time of `skewfix measure --method flicker`.
     python scripts/bench_speed.py --costs
     python scripts/bench_speed.py --against REV [--repeats N]
     python scripts/bench_speed.py --threads [--repeats N]
+    python scripts/bench_speed.py --floor [--quick] [--repeats N]
 
 ``--costs`` instead times each stage alone on one thread at 1080p and prints
 the ratio those costs allow at best (every core busy in both jobs).
 ``--against REV`` runs this tree's fix and a git revision's side by side with
 the plain transcode (mean of N alternating rounds): the fair way to see what a
 change did on a noisy machine.
+``--floor`` compares fix with what the job cannot avoid: decoding the source and
+encoding fix's own corrected pictures at the same settings (the pictures made
+once, decoded into memory untimed, picture types cleared); wall and CPU, the
+best of N alternating rounds, the load beside each figure.
 ``--threads`` runs plain and fix on the 1080p clip while sampling the CPU time
 of every thread of the child (/proc/PID/task), and prints CPU seconds per
 thread: where the cores go when everything runs at once.
@@ -113,9 +118,17 @@ def clip_specs(quick: bool) -> dict[str, ClipSpec]:
 
 # -- the two jobs, each run in a child process ----------------------------------------
 
-def plain_transcode(source: str, target: str, codec: str) -> int:
-    """Decode every frame and encode it again with the same encoder settings as fix; returns frames."""
+def plain_transcode(source: str, target: str, codec: str, pictures: list | None = None) -> int:
+    """Decode every frame and encode it again with the same encoder settings as fix; returns frames.
+
+    ``pictures``: frames already in memory to encode instead of the decoded ones (the floor job):
+    the source is still decoded in full, and each picture takes its decoded frame's timestamp.
+    Every encoded frame has its picture type cleared, so the encoder chooses its own frame types
+    as it does in fix (a frame decoded from an intra-only codec such as FFV1 or ProRes says "I",
+    and libx264 obeys: every frame became a keyframe).
+    """
     import av
+    from av.video.frame import PictureType
 
     encoder, options = ENCODE[codec]
     with av.open(source) as inp, av.open(target, "w") as out:
@@ -128,12 +141,30 @@ def plain_transcode(source: str, target: str, codec: str) -> int:
         stream.options = dict(options)
         frames = 0
         for frame in inp.decode(video):
-            for packet in stream.encode(frame):
+            picture = frame if pictures is None else pictures[frames]
+            picture.pts, picture.time_base = frame.pts, frame.time_base
+            picture.pict_type = PictureType.NONE
+            for packet in stream.encode(picture):
                 out.mux(packet)
             frames += 1
         for packet in stream.encode():
             out.mux(packet)
     return frames
+
+
+def floor_job(source: str, pictures_file: str, target: str, codec: str) -> dict:
+    """The floor: decode ``source`` and encode fix's corrected pictures with fix's encoder settings.
+
+    The pictures (fix's output, written once losslessly) are decoded into memory first, untimed;
+    the reported times start after that.
+    """
+    import av
+
+    with av.open(pictures_file) as c:
+        pictures = list(c.decode(video=0))
+    start, cpu = time.perf_counter(), time.process_time()
+    frames = plain_transcode(source, target, codec, pictures)
+    return {"frames": frames, "seconds": time.perf_counter() - start, "cpu_s": time.process_time() - cpu}
 
 
 def fix(source: str, target: str, codec: str, readout: float, interpolation: str = "cubic") -> dict:
@@ -186,14 +217,16 @@ def child_main(job: str, *rest: str) -> None:
             raise SystemExit(f"skewfix came from {skewfix.__file__}, not from {expected_tree}")
     if job == "plain":
         report = {"frames": plain_transcode(rest[0], rest[1], rest[2])}
+    elif job == "floor":
+        report = floor_job(rest[0], rest[1], rest[2], rest[3])
     elif job == "fix":
         report = fix(rest[0], rest[1], rest[2], float(rest[3]), rest[4])
     else:  # "cli": the skewfix command line, in process
         from skewfix.cli import main as cli_main
 
         report = {"exit": cli_main(list(rest))}
-    report["seconds"] = time.perf_counter() - start
-    report["cpu_s"] = time.process_time() - cpu_start  # all threads of this process
+    report.setdefault("seconds", time.perf_counter() - start)
+    report.setdefault("cpu_s", time.process_time() - cpu_start)  # all threads of this process
     report["peak_mb"] = peak_rss_mb()
     if names is not None:
         report["thread_names"] = names
@@ -550,6 +583,62 @@ def thread_table(spec: ClipSpec, rounds: int, work: Path) -> None:
           "(the same encoder settings; what encoding the corrected pictures costs beyond the source's)")
 
 
+# -- fix against the floor ----------------------------------------------------------------
+
+FLOOR_TARGETS = {"cubic": (1.35, 1.15), "linear": (1.20, 1.05)}  # (target, aim) of fix/floor
+
+
+def load_now() -> float:
+    return os.getloadavg()[0]
+
+
+def floor_table(specs: list[ClipSpec], repeats: int, work: Path) -> None:
+    """fix against the floor (decode the source + encode fix's own pictures), alternating.
+
+    For each clip, fix's pictures are made once (fix writing FFV1, lossless, untimed). Then
+    ``repeats`` rounds of: the floor job, fix, and the plain transcode, each in a fresh process;
+    the best (smallest) wall and CPU of each are compared, with the 1-minute load average taken
+    just before that run beside it.
+    """
+    print(f"fix against the floor, fastest of {repeats} alternating round(s), every run a fresh process")
+    print("floor = decode the source + encode fix's corrected pictures (made once, decoded into memory "
+          "untimed, picture types cleared, the source's timestamps), same encoder settings as fix")
+    print("wall/CPU in seconds, (load) = 1-minute load average just before that run; own CPU = "
+          "(fix CPU - floor CPU) per frame")
+    head = (f"{'clip':40} {'frames':>6} {'floor s':>13} {'fix s':>13} {'fix/floor':>9} {'target':>7} {'':4} "
+            f"{'floor CPU':>9} {'fix CPU':>8} {'CPU ratio':>9} {'':4} {'own ms/f':>8} {'plain s':>7} {'fix/plain':>9}")
+    print(head)
+    print("-" * len(head))
+    for spec in specs:
+        spec.render()
+        pictures = work / f"pictures_{spec.width}_{spec.codec}_{spec.interpolation}.mkv"
+        run_child(cli_args("fix", str(spec.file), str(pictures), "--readout", f"{spec.readout * 1e3:g}ms",
+                           "--codec", "ffv1", "--interpolation", spec.interpolation, "--force", "--quiet"))
+        suffix = spec.file.suffix
+        runs: dict[str, list[tuple[dict, float]]] = {"floor": [], "fix": [], "plain": []}
+        for _ in range(repeats):
+            for job in runs:
+                load = load_now()
+                if job == "floor":
+                    args = [sys.executable, __file__, "--child", "floor", str(spec.file), str(pictures),
+                            str(work / f"floor{suffix}"), spec.codec]
+                else:
+                    args = job_args(job, spec, work / f"{job}{suffix}")
+                runs[job].append((run_child(args)[0], load))
+        best = {job: min(r, key=lambda item: item[0]["seconds"]) for job, r in runs.items()}
+        cpu = {job: min(report["cpu_s"] for report, _ in r) for job, r in runs.items()}
+        (fl, fl_load), (fx, fx_load), (pl, _) = best["floor"], best["fix"], best["plain"]
+        target, aim = FLOOR_TARGETS[spec.interpolation]
+        wall_ratio, cpu_ratio = fx["seconds"] / fl["seconds"], cpu["fix"] / cpu["floor"]
+        own = 1e3 * (cpu["fix"] - cpu["floor"]) / spec.frames
+        print(f"{spec.label:40} {spec.frames:6d} {fl['seconds']:7.2f} ({fl_load:3.1f}) {fx['seconds']:7.2f} "
+              f"({fx_load:3.1f}) {wall_ratio:8.2f}x {'<=' + format(target, '.2f'):>7} {verdict(wall_ratio, target):4} "
+              f"{cpu['floor']:9.2f} {cpu['fix']:8.2f} {cpu_ratio:8.2f}x {verdict(cpu_ratio, target):4} {own:8.1f} "
+              f"{pl['seconds']:7.2f} {fx['seconds'] / pl['seconds']:8.2f}x")
+    print("targets: cubic (the default) <= 1.35x, aim 1.15x; --interpolation linear <= 1.20x, aim 1.05x; "
+          "wall and CPU alike")
+
+
 # -- cost of each stage on one core ------------------------------------------------------
 
 def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
@@ -653,6 +742,9 @@ def main(argv=None):
                          "transcode in one run, on the 1080p clip and the one four times longer")
     ap.add_argument("--costs", action="store_true",
                     help="only the CPU cost of each stage on one thread at 1080p, and the floor it implies")
+    ap.add_argument("--floor", action="store_true",
+                    help="only fix against the floor (decode + encode of fix's own pictures), 1080p cubic and "
+                         "linear, 4K and 10-bit ProRes")
     ap.add_argument("--threads", action="store_true",
                     help="only CPU seconds per thread of plain and fix on the 1080p clip")
     argv = sys.argv[1:] if argv is None else list(argv)
@@ -664,6 +756,11 @@ def main(argv=None):
     specs = clip_specs(args.quick)
     if args.costs:
         stage_costs(specs["1080"])
+        return 0
+    if args.floor:
+        with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
+            keys = ("1080", "1080lin") if args.quick else ("1080", "1080lin", "4k", "prores")
+            floor_table([specs[k] for k in keys], args.repeats or 3, Path(tmp))
         return 0
     if args.threads:
         with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:

@@ -33,7 +33,7 @@ from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurv
                             load_solver)
 from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings
-from skewfix.warp import WarpMap, correction_map, crop_zoom, remap_plane, reskew_map
+from skewfix.warp import StripAffines, WarpMap, correction_map, crop_zoom, reskew_map, warp_plane
 
 Progress = Callable[[str, int, "int | None"], None]
 IDENTITY_TOLERANCE_PX = 0.01  # a frame whose map moves nothing further is passed through untouched
@@ -272,24 +272,21 @@ class FrameWarper:
             return planes
         pool = self.pool
         fills = black_levels(self.info, len(planes))
-        maps = {}  # U and V share one map
+        strips = {}  # U and V share one set of strips
         out = []
         for plane, sub, fill in zip(planes, subsampling, fills):
             h, w = plane.shape[:2]
             key = (w, h, tuple(sub))
-            if key not in maps:
-                maps[key] = wm.full(w, h, sub, pool=pool)
-            mx, my = maps[key]
+            if key not in strips:
+                strips[key] = StripAffines.of(wm, w, h, sub)
             channels = plane.shape[2] if plane.ndim == 3 else 1
             # luma (and RGB) with cubic convolution; subsampled chroma bilinear (cheaper, and
             # chroma carries little fine detail)
             interp = self.settings.interpolation if tuple(sub) == (1, 1) else "linear"
             dst = None if pool is None else pool.take(plane.shape, plane.dtype)
-            out.append(remap_plane(plane, mx, my, "black" if self.settings.border == "black" else "edge",
-                                   (fill,) * channels if channels > 1 else fill, interp, dst=dst))
-        if pool is not None:
-            for mx, my in maps.values():
-                pool.give(mx.base, my.base)
+            out.append(warp_plane(plane, wm, sub, "black" if self.settings.border == "black" else "edge",
+                                  (fill,) * channels if channels > 1 else fill, interp, dst=dst, pool=pool,
+                                  strips=strips[key]))
         return out
 
 

@@ -212,6 +212,123 @@ def crop_zoom(maps, width: int, height: int, margin: float = 0.5) -> float:
 
 INTERPOLATIONS = {"linear": cv2.INTER_LINEAR, "cubic": cv2.INTER_CUBIC}
 
+#: a strip of rows is warped with one affine transform where that reproduces its map this well (px)
+STRIP_TOLERANCE_PX = 0.01
+
+
+@dataclass
+class StripAffines:
+    """One affine transform per tile of output rows and columns, where it reproduces the map.
+
+    A tile spans the output rows between two neighbouring coarse rows of a
+    `WarpMap` and the columns between two coarse columns ``columns`` cells apart
+    (the whole width when that fits). Inside it the map is bilinear in the
+    coarse samples, so an affine transform fitted to the tile's samples misses
+    the map at most by its largest miss at a sample (a bilinear function's
+    extremes on a rectangle lie at its corners). Each entry of ``tiles`` is
+    ``(row0, row1, col0, col1, matrix or None)``: the matrix maps (column -
+    col0, row - row0) of the tile to the source (cv2.warpAffine's inverse map);
+    None where no affine transform is within the tolerance.
+    """
+
+    tiles: list
+
+    @classmethod
+    def of(cls, wm: "WarpMap", width: int, height: int, subsample=(1, 1),
+           tolerance: float = STRIP_TOLERANCE_PX, narrow: int = 8) -> "StripAffines":
+        fx, fy = subsample
+        ax, ay = wm._absolute_coarse(fx, fy)
+        cx, cy = wm.cell / fx, wm.cell / fy
+        gh, gw = ax.shape
+        xs = -cx / 2.0 - 0.5 + np.arange(gw) * cx  # plane columns and rows of the coarse samples
+        ys = -cy / 2.0 - 0.5 + np.arange(gh) * cy
+        row_edges = np.clip(np.ceil(ys), 0, height).astype(int)
+        col_edges = np.clip(np.ceil(xs), 0, width).astype(int)
+        col_edges[-1] = width
+        whole = _tile_affines(ax, ay, xs, cy, 0, gw - 1)
+        spans = [(j0, min(j0 + narrow, gw - 1)) for j0 in range(0, gw - 1, narrow)]
+        narrow_fits = None  # per span: the tile fits of every strip, made when some strip needs them
+        tiles = []
+        for i, (coef, miss) in enumerate(zip(*whole)):
+            r0, r1 = row_edges[i], row_edges[i + 1]
+            if r1 <= r0:
+                continue
+            if miss <= tolerance:
+                tiles.append((r0, r1, 0, width, _tile_matrix(coef, xs[0], ys[i], 0, r0)))
+                continue
+            if narrow_fits is None:
+                narrow_fits = [_tile_affines(ax, ay, xs, cy, j0, j1) for j0, j1 in spans]
+            for (j0, j1), (coefs, misses) in zip(spans, narrow_fits):
+                c0, c1 = col_edges[j0], col_edges[j1]
+                if c1 <= c0:
+                    continue
+                if misses[i] <= tolerance:
+                    tiles.append((r0, r1, c0, c1, _tile_matrix(coefs[i], xs[j0], ys[i], c0, r0)))
+                elif tiles and tiles[-1][4] is None and tiles[-1][:2] == (r0, r1) and tiles[-1][3] == c0:
+                    tiles[-1] = (r0, r1, tiles[-1][2], c1, None)  # one remap for neighbouring misses
+                else:
+                    tiles.append((r0, r1, c0, c1, None))
+        return cls(tiles)
+
+
+def _tile_affines(ax, ay, xs, cell_y, j0, j1):
+    """Least-squares affine transforms (strips, 3, 2) of the samples in columns j0..j1 of each pair
+    of neighbouring rows of (ax, ay), x counted from xs[j0] and y from the upper row; and each
+    one's largest miss (strips,)."""
+    x = xs[j0:j1 + 1] - xs[j0]
+    ones = np.ones_like(x)
+    design = np.concatenate([np.stack([x, 0 * x, ones], 1), np.stack([x, cell_y * ones, ones], 1)])
+    cols = slice(j0, j1 + 1)
+    target = np.concatenate([np.stack([ax[:-1, cols], ay[:-1, cols]], -1),
+                             np.stack([ax[1:, cols], ay[1:, cols]], -1)], axis=1).astype(np.float64)
+    coef = np.einsum("ps,nsc->npc", np.linalg.pinv(design), target)
+    miss = np.abs(np.einsum("sp,npc->nsc", design, coef) - target).max(axis=(1, 2))
+    return coef, miss
+
+
+def _tile_matrix(coef, x_origin, y_origin, col0, row0) -> np.ndarray:
+    """cv2.warpAffine's 2x3 inverse map for a tile whose first pixel is (col0, row0)."""
+    m = coef.T.copy()  # rows: source x, source y; columns: x, y, 1
+    m[:, 2] += m[:, 0] * (col0 - x_origin) + m[:, 1] * (row0 - y_origin)
+    return m
+
+
+def warp_plane(plane: np.ndarray, wm: "WarpMap", subsample=(1, 1), border: str = "edge", fill=0,
+               interpolation: str = "cubic", dst: np.ndarray | None = None, pool=None,
+               strips: StripAffines | None = None) -> np.ndarray:
+    """`remap_plane` of ``plane`` through ``wm``, strip by strip where the map is affine there.
+
+    Within a strip of 32 rows the map a rolling-shutter correction makes is nearly
+    affine (a shift, a shear and a little roll or zoom); `StripAffines` finds where it
+    is within `STRIP_TOLERANCE_PX`, and those strips go through cv2.warpAffine, which
+    works out the source coordinates as it goes instead of reading two full-size maps.
+    A strip that is not is cut into tiles 8 cells wide, each tried the same way (a wide
+    lens's perspective is nearly affine over a few hundred pixels); the tiles left (a
+    fast change of roll, strong distortion) are remapped from the full maps, made only
+    when some tile needs them. Both use the same
+    interpolation and border, so the two paths agree within OpenCV's fixed-point
+    sampling (1/32 px). ``strips``: `StripAffines.of` the same map and plane size, when
+    several planes share it (U and V).
+    """
+    h, w = plane.shape[:2]
+    out = np.empty_like(plane) if dst is None else dst
+    mode = cv2.BORDER_CONSTANT if border == "black" else cv2.BORDER_REPLICATE
+    interp = INTERPOLATIONS[interpolation]
+    maps = None
+    strips = strips or StripAffines.of(wm, w, h, subsample)
+    for r0, r1, c0, c1, matrix in strips.tiles:
+        if matrix is not None:
+            cv2.warpAffine(plane, matrix, (int(c1 - c0), int(r1 - r0)), dst=out[r0:r1, c0:c1],
+                           flags=interp | cv2.WARP_INVERSE_MAP, borderMode=mode, borderValue=fill)
+            continue
+        if maps is None:
+            maps = wm.full(w, h, subsample, pool=pool)
+        cv2.remap(plane, maps[0][r0:r1, c0:c1], maps[1][r0:r1, c0:c1], interp, dst=out[r0:r1, c0:c1],
+                  borderMode=mode, borderValue=fill)
+    if maps is not None and pool is not None:
+        pool.give(maps[0].base, maps[1].base)
+    return out
+
 
 def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border: str = "edge", fill=0,
                 interpolation: str = "cubic", dst: np.ndarray | None = None) -> np.ndarray:
