@@ -47,6 +47,16 @@ def decoded_frame_at(path: str, fps, index: int):
     raise InputError(f"{path}: has no frame {index}")
 
 
+def frame_index(path: str, info, n_frames: int, number: int | None) -> int:
+    """The position (from 0) of frame ``number`` (README: frame numbers; None: the first
+    frame) in a clip of ``n_frames`` frames; an `InputError` naming the numbers there are."""
+    first = first_frame_number(info)
+    index = 0 if number is None else number - first
+    if not 0 <= index < n_frames:
+        raise InputError(f"{path}: has frames {first} to {first + n_frames - 1}; there is no frame {number}")
+    return index
+
+
 def still_png(before_rgb: np.ndarray, after_rgb: np.ndarray, labels=("as shot", "corrected")) -> bytes:
     """The before/after panel of `skewfix.preview.before_after` as PNG bytes."""
     from skewfix.preview import before_after
@@ -250,7 +260,8 @@ class FixDeliverables:
                 save_motion(self.motion, result.model, result.clock, self.reference_line, result.info)
                 said.append(f"motion: {self.motion}")
             if self.motion_csv is not None:
-                save_motion_csv(self.motion_csv, result.model, result.clock, self.reference_line)
+                save_motion_csv(self.motion_csv, result.model, result.clock, self.reference_line,
+                                first_number=first_frame_number(result.info))
                 said.append(f"motion table: {self.motion_csv}")
             if self._maps:
                 w, h = result.info.width, result.info.height
@@ -278,7 +289,7 @@ class FixDeliverables:
     def _write_report(self, result, skew) -> None:
         from skewfix.report import ReportContent, write_report
 
-        content = ReportContent(self.reference_line, self.border, skew,
+        content = ReportContent(self.reference_line, self.border, skew, first_number=first_frame_number(result.info),
                                 outputs=[(opt, p) for opt, p in (("motion file", self.motion),
                                                                  ("motion table", self.motion_csv),
                                                                  ("warp maps", self.maps_dir),
@@ -287,7 +298,7 @@ class FixDeliverables:
         if k is not None:
             content.still_png = still_png(planes_to_rgb(before.planes, before.pix_fmt, result.info, 8),
                                           planes_to_rgb(after, before.pix_fmt, result.info, 8))
-            content.still_frame = k
+            content.still_frame = content.first_number + k
         write_report(self.report, result, content)
 
     def discard(self) -> None:
