@@ -105,7 +105,7 @@ def read_exr(path: str | Path) -> ExrImage:
                     raise InputError(f"{path}: channel {name} holds {pixels.dtype} samples; "
                                      "only HALF and FLOAT channels are handled")
                 planes.append(np.ascontiguousarray(pixels, dtype=np.float32))
-    except (RuntimeError, ValueError, OSError) as exc:
+    except (RuntimeError, ValueError, TypeError, OSError) as exc:
         raise InputError(f"{path}: cannot be read as OpenEXR ({str(exc).strip() or type(exc).__name__})") from None
     for name, plane in zip(names, planes):
         if plane.shape != planes[0].shape:
