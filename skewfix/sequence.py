@@ -235,7 +235,7 @@ class ImageSequenceSource:
                       frame_count=n, duration_s=float(n / rate), container="image sequence", is_sequence=True,
                       first_number=self.numbers[0], is_rgb=True)
         if self.is_float:
-            from skewfix.exr import FLOAT_PLANES, ExrInfo
+            from skewfix.exr import ExrInfo
 
             h, w = first.shape
             self.info = ExrInfo(width=w, height=h, pix_fmt=FLOAT_PLANES,

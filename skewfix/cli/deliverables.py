@@ -165,9 +165,8 @@ class FixDeliverables:
         return bool(self.maps_dir or self.matte or self.report)
 
     def check(self) -> None:
-        from skewfix.motionfile import check_new_file
-
         from skewfix.cli.options import choice
+        from skewfix.motionfile import check_new_file
 
         check_output_options(self.output, self.sink_options)
         choice(self.map_format, tuple(MAP_FORMATS), "--map-format")
