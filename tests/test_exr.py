@@ -203,3 +203,23 @@ def test_a_video_numbers_its_frames_from_one_everywhere(clip_factory, tmp_path, 
     assert code == 0 and "frame 8" in err, err
     code, err = run(capsys, "preview", src, "--readout", "20ms", "--frame", 0, "--out", tmp_path / "t.png")
     assert code == 1 and "frames 1 to 8" in err and not (tmp_path / "t.png").exists()
+
+
+def test_a_damaged_or_multi_part_exr_is_refused_in_one_line(hdr_plate, tmp_path, capsys):
+    # README, "When something is wrong": one line, a non-zero exit, nothing written
+    folder, _ = hdr_plate
+    plate = tmp_path / "plate"
+    plate.mkdir()
+    for k in range(3):
+        (plate / f"p.{k + 1:04d}.exr").write_bytes((folder / f"plate.{1001 + k:04d}.exr").read_bytes())
+    (plate / "p.0002.exr").write_bytes(b"v/1\x01" + b"\0" * 64)  # the OpenEXR magic number, then nothing
+    out = tmp_path / "out"
+    out.mkdir()
+    code, err = run(capsys, "fix", plate / "p.%04d.exr", out / "o.%04d.exr", "--fps", 24, "--readout", "20ms")
+    assert code == 1 and "p.0002.exr" in err and "OpenEXR" in err and len(err.strip().splitlines()) == 1
+    assert not list(out.iterdir())
+    parts = [OpenEXR.Part({}, {"R": np.zeros((8, 8), np.float16)}) for _ in range(2)]
+    with OpenEXR.File(parts) as f:  # two images in one file (OpenEXR 2's multi-part files)
+        f.write(str(plate / "p.0002.exr"))
+    code, err = run(capsys, "fix", plate / "p.%04d.exr", out / "o.%04d.exr", "--fps", 24, "--readout", "20ms")
+    assert code == 1 and "multi-part" in err and not list(out.iterdir())
