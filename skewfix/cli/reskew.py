@@ -38,7 +38,11 @@ def reskew_command(
     force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
-    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
+    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT.
+
+    INPUT has the plate's frame count and size, or is larger and centred on the plate
+    with --overscan (CG rendered with overscan); OUTPUT keeps INPUT's size.
+    """
     from skewfix.rowclock import parse_rate
     from skewfix.decode import open_source
     from skewfix.encode import DeferredSink, check_output_path
