@@ -71,7 +71,12 @@ A world direction ``d`` is seen at time ``t`` at the pixel ``p`` with::
     (x, y, z) = R(t) d,   (u, v) = (x / z, y / z),   g = 1 + k1 (u^2 + v^2) + k2 (u^2 + v^2)^2
     p = (cx + f g u, cy + f g v)
 
-The CSV has one row per frame: ``frame`` (0-based), ``time_s`` (frame start),
+Frame positions in the file (``first_frame``, ``last_frame``, ``cuts_after``,
+``unmeasured_after``) count from 0 at the first frame; ``source.first_number``
+is the first frame's number (null: a video, whose frames are numbered from 1).
+
+The CSV has one row per frame: ``frame`` (the frame number, as the README's
+"Frame numbers" states: a sequence's file number, a video's counted from 1), ``time_s`` (frame start),
 ``reference_time_s``, the curves at the reference time (similarity:
 ``pan_x_px``, ``pan_y_px``, ``roll_deg``, ``zoom`` as a factor; rotation:
 ``rot_x_deg``, ``rot_y_deg``, ``rot_z_deg``), and the skew the
@@ -191,25 +196,28 @@ def skew_per_frame(model: MotionModel, clock: RowClock, reference_line: str) -> 
                      for k in range(len(clock.frame_times))]).reshape(-1, 2)
 
 
-def motion_table(model: MotionModel, clock: RowClock, reference_line: str) -> list[dict]:
-    """One dict per frame with the CSV's columns."""
+def motion_table(model: MotionModel, clock: RowClock, reference_line: str, first_number: int = 1) -> list[dict]:
+    """One dict per frame with the CSV's columns; ``frame`` is numbered from ``first_number``."""
     skew = skew_per_frame(model, clock, reference_line)
     rows = []
     for k in range(len(clock.frame_times)):
         t_ref = float(clock.reference_time(k, reference_line))
         curves = model.kind.describe(model.segment_for(k).evaluate(np.array([t_ref])))
-        rows.append({"frame": k, "time_s": float(clock.frame_times[k]), "reference_time_s": t_ref,
+        rows.append({"frame": first_number + k, "time_s": float(clock.frame_times[k]), "reference_time_s": t_ref,
                      **{name: float(v[0]) for name, v in curves.items()},
                      "skew_x_px": float(skew[k, 0]), "skew_y_px": float(skew[k, 1])})
     return rows
 
 
-def save_motion_csv(path: str | os.PathLike, model: MotionModel, clock: RowClock, reference_line: str) -> Path:
-    """Write one CSV row per frame (columns: `csv_columns`), whole or not at all."""
+def save_motion_csv(path: str | os.PathLike, model: MotionModel, clock: RowClock, reference_line: str,
+                    first_number: int = 1) -> Path:
+    """Write one CSV row per frame (columns: `csv_columns`), whole or not at all; the
+    ``frame`` column holds frame numbers from ``first_number`` (a sequence's first file
+    number, else 1: `skewfix.sequence.first_frame_number`)."""
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=csv_columns(model), lineterminator="\n")
     writer.writeheader()
-    for row in motion_table(model, clock, reference_line):
+    for row in motion_table(model, clock, reference_line, first_number):
         writer.writerow({key: (f"{value:.9g}" if isinstance(value, float) else value) for key, value in row.items()})
     return write_whole(path, buf.getvalue())
 

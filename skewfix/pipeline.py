@@ -305,6 +305,7 @@ def window_for(info: VideoInfo, budget_bytes: int = LOOKAHEAD_BYTES) -> tuple[in
     sample = 2 if info.bit_depth > 8 else 1
     chroma = 3.0 if info.is_rgb or "444" in info.pix_fmt else 2.0 if "422" in info.pix_fmt else 1.5
     frame_bytes = info.width * info.height * sample * chroma
+    frame_bytes = getattr(info, "frame_bytes", None) or frame_bytes  # float planes (OpenEXR) say their own
     frames = max(10, int(budget_bytes // max(frame_bytes, 1)))
     margin = min(MARGIN, frames // 3)
     window = max(4, min(MAX_WINDOW, frames - 2 * margin))

@@ -32,7 +32,8 @@ class ReportContent:
     border: str
     skew: np.ndarray  # (n_frames, 2): skew_x_px, skew_y_px
     still_png: bytes | None = None
-    still_frame: int | None = None
+    still_frame: int | None = None  # the still's frame number
+    first_number: int = 1  # the number of the first frame (README: frame numbers)
     outputs: list[tuple[str, str]] = field(default_factory=list)  # (what, path)
 
 
@@ -76,11 +77,11 @@ def motion_plot_png(model: MotionModel, clock: RowClock, cuts=()) -> bytes:
     return _png(fig)
 
 
-def skew_plot_png(skew: np.ndarray) -> bytes:
-    """Per-frame skew removed: horizontal lean and vertical stretch, px."""
+def skew_plot_png(skew: np.ndarray, first_number: int = 1) -> bytes:
+    """Per-frame skew removed: horizontal lean and vertical stretch, px, against the frame numbers."""
     fig = _figure(2.6)
     ax = fig.subplots()
-    frames = np.arange(len(skew))
+    frames = first_number + np.arange(len(skew))
     ax.plot(frames, skew[:, 0], marker="o", markersize=2.5, linewidth=1.2, color="#1f5f8b",
             label="lean: bottom row vs top row, x (px)")
     ax.plot(frames, skew[:, 1], marker="s", markersize=2.5, linewidth=1.0, color="#c27c0e",
@@ -136,7 +137,7 @@ def report_html(result, content: ReportContent) -> str:
         ("unmeasured frame pairs", str(len(model.unmeasured_pairs))),
         ("tracks kept by the fit", f"{model.inlier_fraction * 100:.0f} %"),
         ("largest skew removed", f"{skew[worst, 0]:+.2f} px lean, {skew[worst, 1]:+.2f} px stretch "
-                                 f"(frame {worst})" if len(skew) else "none"),
+                                 f"(frame {content.first_number + worst})" if len(skew) else "none"),
     ]
     facts += [(what, path) for what, path in content.outputs]
     rows = "\n".join(f"<tr><td>{e(k)}</td><td>{e(str(v))}</td></tr>" for k, v in facts)
@@ -147,7 +148,7 @@ def report_html(result, content: ReportContent) -> str:
                  f"<p>Straight reference lines are drawn over both halves.</p>\n"
                  f"{_img(content.still_png, f'frame {content.still_frame} as shot and corrected')}")
     motion = _img(motion_plot_png(model, clock, model.cuts), "solved camera motion over time")
-    skew_img = _img(skew_plot_png(skew), "skew removed per frame")
+    skew_img = _img(skew_plot_png(skew, content.first_number), "skew removed per frame")
     return f"""<!DOCTYPE html>
 <html lang="en">
 <head>

@@ -1,4 +1,4 @@
-"""Numbered image sequences in and out: PNG and TIFF at 8 or 16 bit.
+"""Numbered image sequences in and out: PNG and TIFF at 8 or 16 bit, OpenEXR at half or float.
 
 A sequence is named by a pattern with one frame-number field: ``%04d`` (or
 ``%d``, unpadded) in printf style, or a run of ``#`` (``plate.####.tif``: one
@@ -9,25 +9,28 @@ A sequence is named by a pattern with one frame-number field: ``%04d`` (or
   matching file at all is an error naming the pattern;
 * an image file carries no frame rate, so one must be given (``--fps``, or the
   motion file for ``reskew``); frame ``k`` is timed ``k / rate``;
-* each file is read with ``cv2.imread(IMREAD_UNCHANGED)`` and handed on as one
-  packed RGB plane (``rgb24`` or ``rgb48le``); grey images become RGB and an
-  alpha channel is dropped.
+* a PNG/TIFF file is read with ``cv2.imread(IMREAD_UNCHANGED)`` and handed on as
+  one packed RGB plane (``rgb24`` or ``rgb48le``); grey images become RGB and an
+  alpha channel is dropped;
+* an OpenEXR file (`skewfix.exr`) is handed on as one float32 plane per
+  channel (R, G, B, A and any others), unclipped.
 
 Writing (`ImageSequenceSink`): frames are numbered like the input sequence
 (same first number) or, for a video input, from 1 (the first frame of a clip
-is frame 1). ``depth`` is 8 or 16 bits; by default it keeps the source's
+is frame 1: `first_frame_number`). ``depth`` is 8 or 16 bits; by default it keeps the source's
 depth, and anything deeper than 8 bits (10- or 12-bit video) goes to 16 bits.
 Depth changes scale to the full range, ``round(v * (2**out - 1) / (2**in - 1))``
 (so 10-bit 1023 becomes 65535; a bit shift would stop at 65472). YUV video is
 converted to RGB at full precision here (`yuv_to_rgb`), not through 8 bits.
+An OpenEXR output keeps an EXR input's channels and pixel types (``depth`` 16
+sets them to half, 32 to float); from any other input it holds R, G, B code
+values scaled to 0..1 (no transfer curve is undone), half up to 10-bit
+sources and float beyond. Float planes are never written to PNG, TIFF or
+video (they would have to be clipped): an EXR input needs an EXR output.
 
 Files are written under a hidden folder beside the output and moved into
 place only once every frame has been written (`StagedSequence`); on failure
 the folder is removed and no output file appears.
-
-OpenEXR is refused with a clear message: OpenCV's build here reads and writes
-no ``.exr`` (``cv2.haveImageWriter('x.exr')`` is False), and the tracker
-expects integer samples.
 """
 
 from __future__ import annotations
@@ -47,6 +50,7 @@ import numpy as np
 
 from skewfix.decode import DecodedFrame, VideoInfo
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+from skewfix.exr import FLOAT_PLANES  # no OpenEXR import: the bindings load on first use
 from skewfix.rowclock import frame_times_from_rate, parse_rate
 
 IMAGE_EXTENSIONS = (".png", ".tif", ".tiff")
@@ -133,17 +137,43 @@ def parse_pattern(text: str | os.PathLike) -> FramePattern:
 
 
 def check_image_format(pattern: FramePattern) -> None:
-    """Refuse file types other than PNG and TIFF with a one-line reason."""
+    """Refuse file types other than PNG, TIFF and OpenEXR with a one-line reason (and OpenEXR
+    when its bindings are not installed)."""
     ext = pattern.extension
     if ext in FLOAT_EXTENSIONS:
-        if not cv2.haveImageWriter("probe.exr"):
-            raise UsageProblem(f"{pattern.text}: OpenEXR (.exr) is not available: this OpenCV build has no "
-                               "OpenEXR support; use 16-bit TIFF or PNG")
-        raise UsageProblem(f"{pattern.text}: floating-point OpenEXR plates are not handled; "
-                           "use 16-bit TIFF or PNG")
+        from skewfix.exr import openexr
+
+        try:
+            openexr()
+        except UsageProblem as exc:
+            raise UsageProblem(f"{pattern.text}: {exc}") from None
+        return
     if ext not in IMAGE_EXTENSIONS:
-        raise UsageProblem(f"{pattern.text}: image sequences must be PNG or TIFF "
-                           f"({', '.join(IMAGE_EXTENSIONS)}), not {ext or 'a name without extension'}")
+        raise UsageProblem(f"{pattern.text}: image sequences must be PNG, TIFF or OpenEXR "
+                           f"({', '.join(IMAGE_EXTENSIONS + FLOAT_EXTENSIONS)}), "
+                           f"not {ext or 'a name without extension'}")
+
+
+def is_float_sequence(path: str | os.PathLike) -> bool:
+    """True for a numbered OpenEXR sequence name (float planes)."""
+    return is_pattern(path) and parse_pattern(path).extension in FLOAT_EXTENSIONS
+
+
+def float_output_problem(output: str) -> UsageProblem:
+    return UsageProblem(f"{output}: an OpenEXR input is written as OpenEXR (e.g. plate.%04d.exr): its "
+                        "float values would be clipped in PNG, TIFF or video")
+
+
+def check_float_output(input_path: str, output: str) -> None:
+    """An OpenEXR input's float planes go only to an OpenEXR output (never clipped to integers)."""
+    if is_float_sequence(input_path) and not is_float_sequence(output):
+        raise float_output_problem(output)
+
+
+def first_frame_number(info: VideoInfo) -> int:
+    """The number of a clip's first frame, as every output and option counts frames: an
+    input sequence's first file number, else 1 (`VIDEO_FIRST_NUMBER`)."""
+    return info.first_number if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
 
 
 def find_frame_numbers(pattern: FramePattern) -> list[int]:
@@ -196,21 +226,47 @@ class ImageSequenceSource:
                                "give one with --fps (e.g. 24 or 24000/1001)")
         rate = _as_rate(fps)
         self.numbers = find_frame_numbers(self.pattern)
-        first = read_image_rgb(self.pattern.path_for(self.numbers[0]))
-        self._shape, self._dtype = first.shape, first.dtype
-        depth = 16 if first.dtype == np.uint16 else 8
+        self.is_float = self.pattern.extension in FLOAT_EXTENSIONS
+        first = self._read(self.pattern.path_for(self.numbers[0]))
+        self._signature = self._signature_of(first)
         n = len(self.numbers)
         self.times = frame_times_from_rate(n, rate)
-        self.info = VideoInfo(
-            path=self.pattern.text, width=first.shape[1], height=first.shape[0],
-            pix_fmt="rgb48le" if depth == 16 else "rgb24", bit_depth=depth,
-            codec="tiff" if self.pattern.extension.startswith(".tif") else "png", profile=None,
-            rate=rate, time_base=Fraction(1) / rate, frame_count=n, duration_s=float(n / rate),
-            container="image sequence", is_sequence=True, first_number=self.numbers[0], is_rgb=True,
-        )
+        common = dict(path=self.pattern.text, profile=None, rate=rate, time_base=Fraction(1) / rate,
+                      frame_count=n, duration_s=float(n / rate), container="image sequence", is_sequence=True,
+                      first_number=self.numbers[0], is_rgb=True)
+        if self.is_float:
+            from skewfix.exr import ExrInfo
+
+            h, w = first.shape
+            self.info = ExrInfo(width=w, height=h, pix_fmt=FLOAT_PLANES,
+                                bit_depth=32 if "float" in first.types else 16, codec="exr",
+                                names=first.names, types=first.types, header=first.header, **common)
+        else:
+            depth = 16 if first.dtype == np.uint16 else 8
+            self.info = VideoInfo(width=first.shape[1], height=first.shape[0],
+                                  pix_fmt="rgb48le" if depth == 16 else "rgb24", bit_depth=depth,
+                                  codec="tiff" if self.pattern.extension.startswith(".tif") else "png", **common)
         self.lost_frames = 0
         self.decode_errors: list[str] = []
         self.io_lock = threading.Lock()  # as a video source's (nothing here is shared between threads)
+
+    def _read(self, path: Path):
+        if self.is_float:
+            from skewfix.exr import read_exr
+
+            return read_exr(path)
+        return read_image_rgb(path)
+
+    def _signature_of(self, image) -> tuple:
+        """What every frame must share with the first: size and sample type (and EXR channels)."""
+        if self.is_float:
+            return image.shape, image.names
+        return image.shape[:2], image.dtype
+
+    def _describe(self, signature) -> str:
+        shape, kind = signature
+        what = ", ".join(kind) if self.is_float else str(kind)
+        return f"{shape[1]}x{shape[0]} {what}"
 
     def close(self) -> None:
         return None
@@ -226,12 +282,19 @@ class ImageSequenceSource:
             path = self.pattern.path_for(number)
             if not path.exists():
                 raise InputError(f"{self.pattern.text}: frame {number} is missing: {path} not found")
-            img = read_image_rgb(path)
-            if img.shape != self._shape or img.dtype != self._dtype:
-                raise InputError(f"{path}: {img.shape[1]}x{img.shape[0]} {img.dtype} differs from the first "
-                                 f"frame ({self._shape[1]}x{self._shape[0]} {self._dtype})")
-            yield DecodedFrame(k, float(self.times[k]), k, [img], [(1, 1)], self.info.bit_depth, True,
-                               self.info.pix_fmt)
+            img = self._read(path)
+            signature = self._signature_of(img)
+            if signature != self._signature:
+                raise InputError(f"{path}: {self._describe(signature)} differs from the first "
+                                 f"frame ({self._describe(self._signature)})")
+            if self.is_float:
+                from skewfix.exr import ExrFrame
+
+                yield ExrFrame(k, float(self.times[k]), k, img.planes, [(1, 1)] * len(img.planes),
+                               self.info.bit_depth, True, self.info.pix_fmt, names=img.names)
+            else:
+                yield DecodedFrame(k, float(self.times[k]), k, [img], [(1, 1)], self.info.bit_depth, True,
+                                   self.info.pix_fmt)
 
     def demux(self, copy_streams: bool = False) -> Iterator[tuple[str, object]]:
         """Yield ("frame", DecodedFrame); a sequence has no other streams to copy."""
@@ -303,12 +366,15 @@ def planes_to_rgb(planes: list[np.ndarray], pix_fmt: str, info: VideoInfo, bits:
     """Decoded or remapped planes as one HxWx3 RGB image at ``bits`` (8 or 16).
 
     Packed and planar RGB are rescaled exactly; planar Y'CbCr goes through
-    `yuv_to_rgb` with the clip's matrix and range tags; any other layout is
-    converted by FFmpeg's swscale to ``rgb48le`` first.
+    `yuv_to_rgb` with the clip's matrix and range tags; float planes (OpenEXR)
+    are clipped and sRGB-encoded for viewing (`skewfix.exr.display_rgb`); any
+    other layout is converted by FFmpeg's swscale to ``rgb48le`` first.
     """
-    import av
+    if pix_fmt == FLOAT_PLANES:
+        from skewfix.exr import display_rgb
 
-    from skewfix.pipeline import black_levels
+        return display_rgb(planes, tuple(getattr(info, "names", ())) or ("R", "G", "B"), bits)
+    import av
 
     fmt = av.VideoFormat(pix_fmt)
     src_bits = max(c.bits for c in fmt.components)
@@ -316,15 +382,47 @@ def planes_to_rgb(planes: list[np.ndarray], pix_fmt: str, info: VideoInfo, bits:
         return rescale_depth(planes[0][..., :3], src_bits, bits)
     if pix_fmt.startswith("gbrp") and len(planes) >= 3:
         return rescale_depth(np.stack([planes[2], planes[0], planes[1]], axis=-1), src_bits, bits)
-    planar_yuv = pix_fmt.startswith(("yuv", "yuvj")) and len(planes) >= 3 and all(p.ndim == 2 for p in planes[:3])
-    if planar_yuv:
-        full = black_levels(replace(info, pix_fmt=pix_fmt, bit_depth=src_bits, is_rgb=False), 1)[0] == 0.0
-        return quantise(yuv_to_rgb(planes[0], planes[1], planes[2], src_bits, full, _luma_weights(info.color)), bits)
+    if _planar_yuv(pix_fmt, planes):
+        return quantise(_yuv_planes_to_unit(planes, pix_fmt, info, src_bits), bits)
+    return rescale_depth(_swscale_rgb48(planes, pix_fmt), 16, bits)
+
+
+def planes_to_unit_rgb(planes: list[np.ndarray], pix_fmt: str, info: VideoInfo) -> np.ndarray:
+    """Integer planes as HxWx3 float32 R'G'B' code values over 0..1, not clipped (a YUV
+    source's values outside the RGB cube stay outside) and never through 8 bits."""
+    import av
+
+    fmt = av.VideoFormat(pix_fmt)
+    src_bits = max(c.bits for c in fmt.components)
+    top = float((1 << src_bits) - 1)
+    if pix_fmt in ("rgb24", "rgb48le"):
+        return planes[0][..., :3].astype(np.float32) / top
+    if pix_fmt.startswith("gbrp") and len(planes) >= 3:
+        return np.stack([planes[2], planes[0], planes[1]], axis=-1).astype(np.float32) / top
+    if _planar_yuv(pix_fmt, planes):
+        return _yuv_planes_to_unit(planes, pix_fmt, info, src_bits)
+    return _swscale_rgb48(planes, pix_fmt).astype(np.float32) / 65535.0
+
+
+def _planar_yuv(pix_fmt: str, planes) -> bool:
+    return pix_fmt.startswith(("yuv", "yuvj")) and len(planes) >= 3 and all(p.ndim == 2 for p in planes[:3])
+
+
+def _yuv_planes_to_unit(planes, pix_fmt: str, info: VideoInfo, src_bits: int) -> np.ndarray:
+    from skewfix.pipeline import black_levels
+
+    full = black_levels(replace(info, pix_fmt=pix_fmt, bit_depth=src_bits, is_rgb=False), 1)[0] == 0.0
+    return yuv_to_rgb(planes[0], planes[1], planes[2], src_bits, full, _luma_weights(info.color))
+
+
+def _swscale_rgb48(planes, pix_fmt: str) -> np.ndarray:
+    import av
+
     from skewfix.encode import fill_frame
 
     frame = av.VideoFrame(planes[0].shape[1], planes[0].shape[0], pix_fmt)
     fill_frame(frame, planes)
-    return rescale_depth(frame.reformat(format="rgb48le").to_ndarray(), 16, bits)
+    return frame.reformat(format="rgb48le").to_ndarray()
 
 
 # --------------------------------------------------------------------------
@@ -372,15 +470,32 @@ class StagedSequence:
             raise RuntimeProblem(f"{pattern.text}: cannot write in {home} ({exc.strerror})") from None
 
     def write(self, index: int, image: np.ndarray) -> None:
-        """Write frame ``index`` (0-based) with OpenCV's channel order (BGR)."""
+        """Write frame ``index`` (0-based) with OpenCV's channel order (BGR); to an ``.exr``
+        name a one-channel image is written as one half channel ``Y`` (8-bit 255 is 1.0)."""
+        if self.pattern.extension in FLOAT_EXTENSIONS and image.ndim == 2:
+            from skewfix.exr import write_exr
+
+            scale = 1.0 / 255.0 if image.dtype == np.uint8 else 1.0
+            plane = image.astype(np.float32) * scale
+            self.write_with(index, lambda target: write_exr(target, ("Y",), [plane], ("half",)))
+            return
+
+        def save(target: Path) -> None:
+            number = self.first_number + index
+            try:
+                ok = cv2.imwrite(str(target), image)
+            except cv2.error as exc:
+                raise RuntimeProblem(f"{self.pattern.path_for(number)}: could not be written "
+                                     f"({exc.msg.strip()})") from None
+            if not ok:
+                raise RuntimeProblem(f"{self.pattern.path_for(number)}: could not be written")
+
+        self.write_with(index, save)
+
+    def write_with(self, index: int, save) -> None:
+        """Stage frame ``index`` (0-based) by calling ``save(path)`` with its staging path."""
         number = self.first_number + index
-        target = self.stage / self.pattern.name_for(number)
-        try:
-            ok = cv2.imwrite(str(target), image)
-        except cv2.error as exc:
-            raise RuntimeProblem(f"{self.pattern.path_for(number)}: could not be written ({exc.msg.strip()})") from None
-        if not ok:
-            raise RuntimeProblem(f"{self.pattern.path_for(number)}: could not be written")
+        save(self.stage / self.pattern.name_for(number))
         self._numbers.append(number)
 
     @property
@@ -410,33 +525,57 @@ def default_depth(info: VideoInfo) -> int:
 
 
 class ImageSequenceSink:
-    """Corrected frames as a PNG/TIFF sequence; same methods as `VideoSink` minus ``copy_packet``."""
+    """Corrected frames as a PNG/TIFF/OpenEXR sequence; same methods as `VideoSink` minus
+    ``copy_packet``."""
 
     def __init__(self, output: str, info: VideoInfo, depth: int | None = None, force: bool = False,
                  first_number: int | None = None):
         self.pattern = parse_pattern(output)
         check_image_format(self.pattern)
-        if depth is not None and depth not in DEPTHS:
-            raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
         self.info = info
-        self.depth = depth or default_depth(info)
+        self.is_float = self.pattern.extension in FLOAT_EXTENSIONS
+        if self.is_float:
+            from skewfix.exr import output_types
+
+            self.names, self.types = output_types(info, depth)
+            self.header = dict(getattr(info, "header", {}) or {})
+            self.depth = 32 if "float" in self.types else 16
+        else:
+            if info.pix_fmt == FLOAT_PLANES:
+                raise float_output_problem(output)
+            if depth is not None and depth not in DEPTHS:
+                raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
+            self.depth = depth or default_depth(info)
         if first_number is None:
-            first_number = info.first_number if info.is_sequence and info.first_number is not None \
-                else VIDEO_FIRST_NUMBER
+            first_number = first_frame_number(info)
         self.notes: list[str] = []
         if info.has_audio:
             self.notes.append("the audio is not carried into an image sequence")
         if info.rotation:
             self.notes.append(f"the source's {info.rotation}° rotation tag is not applied: "
                               "images are written in the stored orientation")
-        if self.depth < info.bit_depth:
+        if not self.is_float and self.depth < info.bit_depth:
             self.notes.append(f"writing {self.depth}-bit images from a {info.bit_depth}-bit source")
+        if self.is_float and info.pix_fmt == FLOAT_PLANES and "half" in self.types and \
+                "float" in getattr(info, "types", ()):
+            self.notes.append("writing half-float channels from a float source (about 3 significant digits)")
         self._staged = StagedSequence(self.pattern, first_number, force)
         self._frames = 0
 
     def write_planes(self, planes, pts, src_fmt: str) -> None:
-        rgb = planes_to_rgb(planes, src_fmt, self.info, self.depth)
-        self._staged.write(self._frames, cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
+        if self.is_float:
+            from skewfix.exr import write_exr
+
+            if src_fmt == FLOAT_PLANES:
+                channels = list(planes)
+            else:
+                rgb = planes_to_unit_rgb(planes, src_fmt, self.info)
+                channels = [rgb[..., 0], rgb[..., 1], rgb[..., 2]]
+            self._staged.write_with(self._frames, lambda target: write_exr(target, self.names, channels,
+                                                                           self.types, self.header))
+        else:
+            rgb = planes_to_rgb(planes, src_fmt, self.info, self.depth)
+            self._staged.write(self._frames, cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
         self._frames += 1
 
     def finish(self) -> Path:
@@ -466,8 +605,10 @@ def open_sink(input_path: str, output: str, info: VideoInfo, *, codec=None, crf=
     if is_pattern(output):
         if codec is not None:
             raise UsageProblem("--codec applies to video output; an image sequence takes its type from "
-                               "the file extension (.png, .tif)")
+                               "the file extension (.png, .tif, .exr)")
         return ImageSequenceSink(output, info, depth=depth, force=force)
+    if info.pix_fmt == FLOAT_PLANES:
+        raise float_output_problem(output)
     if depth is not None:
         raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
     from skewfix.encode import VideoSink

@@ -175,16 +175,23 @@ def _finite(values: np.ndarray) -> np.ndarray:
 
 
 def reskew_map(model: MotionModel, clock: RowClock, k: int, reference_line: str = "middle",
-               step: int = GRID_STEP) -> WarpMap:
+               step: int = GRID_STEP, overscan: tuple[float, float] = (0.0, 0.0)) -> WarpMap:
     """Map that puts the rolling shutter back: row ``y`` of the output samples the clean
-    frame (the view at ``t_ref``) where the world seen by that row at ``t(k, y)`` lay."""
-    w, h = model.width, model.height
+    frame (the view at ``t_ref``) where the world seen by that row at ``t(k, y)`` lay.
+
+    ``overscan`` (mx, my): the clean frame reaches this many pixels beyond the plate on
+    each side (CG rendered larger, centred); the map then covers that larger frame, and
+    its rows above and below the plate are timed by the row clock carried on past them.
+    """
+    mx, my = overscan
+    w, h = int(round(model.width + 2 * mx)), int(round(model.height + 2 * my))
     gx, gy = coarse_grid(w, h, step)
+    px, py = gx - mx, gy - my  # plate coordinates
     seg = model.segment_for(k)
     t_ref = float(clock.reference_time(k, reference_line))
-    world = model.world_from_image(seg, clock.row_time(k, gy), gx, gy)
+    world = model.world_from_image(seg, clock.row_time(k, py), px, py)
     xs, ys = model.image_from_world(seg, np.full(gx.shape, t_ref), world)
-    xs, ys = _finite(xs), _finite(ys)
+    xs, ys = _finite(xs) + mx, _finite(ys) + my
     return WarpMap((xs - gx).astype(np.float32), (ys - gy).astype(np.float32), w, h, step)
 
 

@@ -133,13 +133,13 @@ def test_csv_skew_grows_linearly_with_readout(tmp_path, readout):
     model = steady_pan_model(v, clock)
     t = np.linspace(0, 0.2, 7)
     np.testing.assert_allclose(model.segments[0].evaluate(t)[0], v * t, atol=1e-9)
-    path = save_motion_csv(tmp_path / "m.csv", model, clock, "middle")
+    path = save_motion_csv(tmp_path / "m.csv", model, clock, "middle", first_number=1001)
     rows = list(csv.DictReader(path.open()))
     assert tuple(rows[0]) == csv_columns(model) == (
         "frame", "time_s", "reference_time_s", "pan_x_px", "pan_y_px", "roll_deg", "zoom", "skew_x_px",
         "skew_y_px") and len(rows) == n
     for k, row in enumerate(rows):
-        assert int(row["frame"]) == k
+        assert int(row["frame"]) == 1001 + k  # the frame numbers the README states (a plate from 1001)
         assert float(row["time_s"]) == pytest.approx(k / 25)
         t_ref = k / 25 + readout * (H - 1) / 2 / H  # the middle row's instant
         assert float(row["reference_time_s"]) == pytest.approx(t_ref, abs=1e-9)

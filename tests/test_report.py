@@ -117,7 +117,8 @@ def grid_mask(shape) -> np.ndarray:
 def test_preview_still_is_closer_to_the_truth_after(whip, tmp_path, capsys):
     path, renderer, clock = whip
     still = tmp_path / "still.png"
-    code, err = run(capsys, "preview", path, "--readout", f"{READOUT_MS}ms", "--frame", FRAME, "--out", still,
+    # a video's frames are numbered from 1 (README: frame numbers): position FRAME is frame FRAME + 1
+    code, err = run(capsys, "preview", path, "--readout", f"{READOUT_MS}ms", "--frame", FRAME + 1, "--out", still,
                     "--quiet")
     assert code == 0, err
     panel = cv2.cvtColor(cv2.imread(str(still)), cv2.COLOR_BGR2RGB)
@@ -179,7 +180,7 @@ def test_report_still_shows_the_input_frame_it_names(clip_factory, tmp_path, mon
     assert main(["fix", str(whip[0]), str(tmp_path / "f.mp4"), "--readout", f"{READOUT_MS}ms",
                  "--report", str(page), "--quiet"]) == 0
     k = int(re.search(r"Before and after \(frame (\d+)\)", page.read_text(encoding="utf-8")).group(1))
-    frame = deliverables.decoded_frame_at(str(whip[0]), None, k)
+    frame = deliverables.decoded_frame_at(str(whip[0]), None, k - 1)  # frame numbers count from 1
     from skewfix.decode import open_source
 
     with open_source(str(whip[0])) as source:

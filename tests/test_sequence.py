@@ -97,15 +97,6 @@ def test_no_matching_files_and_no_frame_rate(tmp_path, capsys):
     assert code == 2 and "--fps" in err and len(err.strip().splitlines()) == 1
 
 
-def test_openexr_output_gets_a_clear_message(tmp_path, capsys):
-    write_sequence(tmp_path, "p.{:04d}.png", astronaut_frames(2, 8), first=1)
-    code, err = run(capsys, "fix", tmp_path / "p.%04d.png", tmp_path / "o.%04d.exr", "--readout", "5ms",
-                    "--fps", "25")
-    assert code == 2 and "OpenEXR" in err and "Traceback" not in err
-    if not cv2.haveImageWriter("probe.exr"):  # OpenCV's imgcodecs built without OpenEXR
-        assert "no OpenEXR support" in err
-
-
 def write_planar_clip(path: Path, planes_per_frame, pix_fmt: str) -> None:
     """Encode raw planes losslessly with FFV1 (FFmpeg's lossless codec)."""
     with av.open(str(path), "w") as out:

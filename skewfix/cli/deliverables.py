@@ -3,17 +3,15 @@
 `FixDeliverables` writes what ``fix --save-motion/--save-motion-csv/
   --save-maps/--save-matte/--report`` ask for, each whole or not at all.
 
-Warp maps (``--save-maps DIR``) are 32-bit float TIFFs, one pair per frame:
-``correct_map.NNNN.tif`` (samples the input to give the corrected frame) and
-``reskew_map.NNNN.tif`` (samples a clean frame to give the rolling-shutter
-one). Each pixel holds the *absolute source position* to read, in pixels of the
-full frame with the origin at the top-left and pixel centres at integer
-coordinates (the centre of the top-left pixel is (0, 0)): sample 0 (red) is x,
-sample 1 (green) is y, and sample 2 (blue) is 0, because OpenCV writes no
-two-channel TIFF. Read with ``cv2.imread(..., IMREAD_UNCHANGED)`` the order is
-OpenCV's BGR, so x is ``[..., 2]`` and y is ``[..., 1]``; then
-``cv2.remap(frame, x, y, cv2.INTER_CUBIC, borderMode=cv2.BORDER_REPLICATE)``
-reproduces the correction. Maps and mattes are numbered like the output.
+Warp maps (``--save-maps DIR``) are one pair per frame: ``correct_map.NNNN``
+(samples the input to give the corrected frame) and ``reskew_map.NNNN``
+(samples a clean frame to give the rolling-shutter one), as 32-bit float TIFF
+(``--map-format tiff``, the default) or 2-channel float OpenEXR (``exr``), in
+absolute pixels (``--map-units pixels``, the default) or normalized 0..1; see
+`skewfix.mapfiles` for the layouts and conventions. With pixel maps read by
+OpenCV, ``cv2.remap(frame, x, y, cv2.INTER_CUBIC,
+borderMode=cv2.BORDER_REPLICATE)`` reproduces the correction. Maps and
+mattes are numbered like the output (`skewfix.sequence.first_frame_number`).
 """
 
 from __future__ import annotations
@@ -26,8 +24,10 @@ from pathlib import Path
 import numpy as np
 
 from skewfix.errors import InputError, UsageProblem
-from skewfix.sequence import (DEPTHS, VIDEO_FIRST_NUMBER, FramePattern, StagedSequence, check_sequence_output,
-                              is_pattern, open_sink, parse_pattern, planes_to_rgb)
+from skewfix.mapfiles import MAP_FORMATS, MAP_UNITS, write_map
+from skewfix.sequence import (DEPTHS, FramePattern, StagedSequence, check_float_output, check_sequence_output,
+                              first_frame_number, is_float_sequence, is_pattern, open_sink, parse_pattern,
+                              planes_to_rgb)
 
 MAP_NAMES = ("correct_map", "reskew_map")
 
@@ -45,6 +45,16 @@ def decoded_frame_at(path: str, fps, index: int):
             if frame.index == index:
                 return frame
     raise InputError(f"{path}: has no frame {index}")
+
+
+def frame_index(path: str, info, n_frames: int, number: int | None) -> int:
+    """The position (from 0) of frame ``number`` (README: frame numbers; None: the first
+    frame) in a clip of ``n_frames`` frames; an `InputError` naming the numbers there are."""
+    first = first_frame_number(info)
+    index = 0 if number is None else number - first
+    if not 0 <= index < n_frames:
+        raise InputError(f"{path}: has frames {first} to {first + n_frames - 1}; there is no frame {number}")
+    return index
 
 
 def still_png(before_rgb: np.ndarray, after_rgb: np.ndarray, labels=("as shot", "corrected")) -> bytes:
@@ -87,8 +97,13 @@ def check_output_options(output: str, sink_options: dict) -> None:
         if video_only:
             verb = "applies" if len(video_only) == 1 else "apply"
             raise UsageProblem(f"{'/'.join(video_only)} {verb} to video output; an image sequence takes its "
-                               "type from the file extension (.png, .tif)")
-        if depth is not None and depth not in DEPTHS:
+                               "type from the file extension (.png, .tif, .exr)")
+        if is_float_sequence(output):
+            from skewfix.exr import FLOAT_DEPTHS
+
+            if depth is not None and depth not in FLOAT_DEPTHS:
+                raise UsageProblem(f"--depth for OpenEXR output must be 16 (half) or 32 (float), not {depth}")
+        elif depth is not None and depth not in DEPTHS:
             raise UsageProblem(f"--depth must be 8 or 16, not {depth}")
     elif depth is not None:
         raise UsageProblem("--depth applies to image-sequence output (e.g. plate.%04d.tif)")
@@ -106,11 +121,6 @@ def solve_with_model(analysis, plan, request: str):
     return solve(analysis, seconds, order, choice=chosen)
 
 
-def output_first_number(info) -> int:
-    """Frame numbering of the outputs: the input sequence's first number, else 1."""
-    return info.first_number if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
-
-
 def count_frames(path: str, info) -> int:
     """Frames in a clip or sequence: the stream's own count, else its video packets."""
     if info.frame_count:
@@ -120,11 +130,6 @@ def count_frames(path: str, info) -> int:
     with av.open(path) as container:
         stream = container.streams.video[0]
         return sum(1 for packet in container.demux(stream) if packet.size)
-
-
-def map_image(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
-    """A map as the 3-channel float32 image OpenCV writes with samples (x, y, 0) in file order."""
-    return np.dstack([np.zeros_like(map_x), map_y, map_x]).astype(np.float32)
 
 
 # --------------------------------------------------------------------------
@@ -142,11 +147,12 @@ class FixDeliverables:
 
     def __init__(self, input_path: str, output: str, *, motion=None, motion_csv=None, maps_dir=None,
                  matte=None, report=None, reference_line="middle", border="edge", force=False, fps=None,
-                 sink_options: dict | None = None):
+                 sink_options: dict | None = None, map_format: str = "tiff", map_units: str = "pixels"):
         self.input, self.output = input_path, output
         self.motion, self.motion_csv, self.maps_dir, self.matte, self.report = motion, motion_csv, maps_dir, matte, report
         self.reference_line, self.border, self.force, self.fps = reference_line, border, force, fps
         self.sink_options = sink_options or {}
+        self.map_format, self.map_units = map_format, map_units
         self.info = None
         self._maps: dict[str, StagedSequence] = {}
         self._matte: StagedSequence | None = None
@@ -159,9 +165,19 @@ class FixDeliverables:
         return bool(self.maps_dir or self.matte or self.report)
 
     def check(self) -> None:
+        from skewfix.cli.options import choice
         from skewfix.motionfile import check_new_file
 
         check_output_options(self.output, self.sink_options)
+        choice(self.map_format, tuple(MAP_FORMATS), "--map-format")
+        choice(self.map_units, MAP_UNITS, "--map-units")
+        if self.maps_dir is None and (self.map_format, self.map_units) != ("tiff", "pixels"):
+            raise UsageProblem("--map-format and --map-units apply to the maps of --save-maps DIR")
+        if self.map_format == "exr" or is_float_sequence(self.output):
+            from skewfix.exr import openexr
+
+            openexr()
+        check_float_output(self.input, self.output)
         if is_pattern(self.output):
             check_sequence_output(self.input, self.output, self.force)
         check_distinct_outputs(self.input, {"OUTPUT": self.output, "--save-motion": self.motion,
@@ -189,11 +205,11 @@ class FixDeliverables:
                                        "(add --force to replace them)")
 
     def _map_pattern(self, name: str) -> FramePattern:
-        return parse_pattern(str(Path(self.maps_dir) / f"{name}.%04d.tif"))
+        return parse_pattern(str(Path(self.maps_dir) / f"{name}.%04d{MAP_FORMATS[self.map_format]}"))
 
     def sink_factory(self, info, template=None):
         self.info = info
-        first = output_first_number(info)
+        first = first_frame_number(info)
         try:
             if self.maps_dir is not None:
                 for name in MAP_NAMES:
@@ -214,7 +230,7 @@ class FixDeliverables:
         if self.maps_dir is not None or self._matte is not None:
             map_x, map_y = wm.full(self.info.width, self.info.height)
             if self.maps_dir is not None:
-                self._maps["correct_map"].write(k, map_image(map_x, map_y))
+                write_map(self._maps["correct_map"], k, map_x, map_y, self.map_units)
             if self._matte is not None:
                 matte = outside_matte(map_x, map_y).astype(np.uint8) * 255
                 self._matte.write(k, matte)
@@ -243,13 +259,14 @@ class FixDeliverables:
                 save_motion(self.motion, result.model, result.clock, self.reference_line, result.info)
                 said.append(f"motion: {self.motion}")
             if self.motion_csv is not None:
-                save_motion_csv(self.motion_csv, result.model, result.clock, self.reference_line)
+                save_motion_csv(self.motion_csv, result.model, result.clock, self.reference_line,
+                                first_number=first_frame_number(result.info))
                 said.append(f"motion table: {self.motion_csv}")
             if self._maps:
                 w, h = result.info.width, result.info.height
                 for k in range(len(result.clock.frame_times)):
                     wm = reskew_map(result.model, result.clock, k, self.reference_line)
-                    self._maps["reskew_map"].write(k, map_image(*wm.full(w, h)))
+                    write_map(self._maps["reskew_map"], k, *wm.full(w, h), self.map_units)
                 for staged in self._maps.values():
                     staged.commit()
                 said.append(f"warp maps: {self.maps_dir} ({len(result.clock.frame_times)} pairs)")
@@ -271,7 +288,7 @@ class FixDeliverables:
     def _write_report(self, result, skew) -> None:
         from skewfix.report import ReportContent, write_report
 
-        content = ReportContent(self.reference_line, self.border, skew,
+        content = ReportContent(self.reference_line, self.border, skew, first_number=first_frame_number(result.info),
                                 outputs=[(opt, p) for opt, p in (("motion file", self.motion),
                                                                  ("motion table", self.motion_csv),
                                                                  ("warp maps", self.maps_dir),
@@ -280,7 +297,7 @@ class FixDeliverables:
         if k is not None:
             content.still_png = still_png(planes_to_rgb(before.planes, before.pix_fmt, result.info, 8),
                                           planes_to_rgb(after, before.pix_fmt, result.info, 8))
-            content.still_frame = k
+            content.still_frame = content.first_number + k
         write_report(self.report, result, content)
 
     def discard(self) -> None:

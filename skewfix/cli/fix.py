@@ -35,13 +35,18 @@ def fix_command(
     preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input (e.g. 24000/1001)."),
     depth: Optional[int] = typer.Option(None, "--depth",
-                                        help="8 or 16 bits for sequence output (default: as the source; "
-                                             "10-bit video goes to 16)."),
+                                        help="8 or 16 bits for PNG/TIFF output (default: as the source; "
+                                             "10-bit video goes to 16); 16 (half) or 32 (float) for EXR."),
     save_motion: Optional[str] = typer.Option(None, "--save-motion", help="Write the solved motion (JSON)."),
     save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv",
                                                   help="Write one row per frame of motion and skew (CSV)."),
     save_maps: Optional[str] = typer.Option(None, "--save-maps",
-                                            help="Folder for per-frame correct/reskew maps (float TIFF)."),
+                                            help="Folder for per-frame correct/reskew maps (float TIFF or EXR)."),
+    map_format: str = typer.Option("tiff", "--map-format", help="Maps as tiff (32-bit float, x y 0) or exr "
+                                                                 "(2-channel float: R is x, G is y)."),
+    map_units: str = typer.Option("pixels", "--map-units",
+                                  help="Maps in pixels (absolute source position, origin top-left) or "
+                                       "normalized (0-1 across the frame, origin bottom-left, y up)."),
     save_matte: Optional[str] = typer.Option(None, "--save-matte",
                                              help="Pattern (matte.%04d.png) for per-frame mattes of filled pixels."),
     report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
@@ -51,8 +56,8 @@ def fix_command(
 ):
     """Remove rolling-shutter skew (lean, stretch, wobble) from INPUT and write OUTPUT.
 
-    OUTPUT may be a numbered sequence (plate.%04d.tif, PNG or TIFF): frames are
-    numbered like an input sequence, or from 1 for a video input.
+    OUTPUT may be a numbered sequence (plate.%04d.tif: PNG, TIFF or OpenEXR): frames
+    are numbered like an input sequence, or from 1 for a video input.
     """
     from skewfix.cli.deliverables import FixDeliverables
     from skewfix.pipeline import FixOptions, fix_clip
@@ -72,7 +77,8 @@ def fix_command(
     extras = FixDeliverables(input, output, motion=save_motion, motion_csv=save_motion_csv, maps_dir=save_maps,
                              matte=save_matte, report=report, reference_line=reference_line, border=border,
                              force=force, fps=options.fps,
-                             sink_options=dict(codec=codec, crf=crf, preset=preset, depth=depth))
+                             sink_options=dict(codec=codec, crf=crf, preset=preset, depth=depth),
+                             map_format=map_format, map_units=map_units)
     extras.check()
     try:
         with TerminalProgress(quiet) as progress:

@@ -192,6 +192,7 @@ class _Measurer:
         """Solve the clip's motion with the measured readout and save it (motion file, table),
         with the motion method's model, else one chosen at the measured readout."""
         from skewfix.motionfile import save_motion, save_motion_csv
+        from skewfix.sequence import first_frame_number
         from skewfix.pipeline import choose_for_analysis, solve
 
         order = estimate.line_order if estimate.line_order != "undetermined" else "top-down"
@@ -201,7 +202,7 @@ class _Measurer:
         if json_path:
             save_motion(json_path, model, clock, "middle", self.analysis.info)
         if csv_path:
-            save_motion_csv(csv_path, model, clock, "middle")
+            save_motion_csv(csv_path, model, clock, "middle", first_number=first_frame_number(analysis.info))
 
 
 def plot_estimate(estimate, path: Path) -> None:

@@ -8,12 +8,12 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, solve_with_model, still_png
+from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, frame_index, solve_with_model, still_png
 from skewfix.cli.options import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
 from skewfix.cli.progress import TerminalProgress
-from skewfix.errors import InputError, UsageProblem
+from skewfix.errors import UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
-from skewfix.sequence import planes_to_rgb
+from skewfix.sequence import first_frame_number, planes_to_rgb
 
 
 @app.command("preview")
@@ -21,8 +21,9 @@ def preview_command(
     clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
     readout: str = typer.Option(..., "--readout", "-r", help="Readout time (18.5ms, 0.0185s, 18500us), "
                                                               "'auto', or a saved camera's name."),
-    frame: int = typer.Option(0, "--frame", "-n", help="Frame to show, counted from 0 (for a sequence: "
-                                                        "from its first file)."),
+    frame: Optional[int] = typer.Option(None, "--frame", "-n", help="Frame to show, by its number: a sequence's "
+                                                                     "file number, a video's counted from 1 "
+                                                                     "(default: the first frame)."),
     out: str = typer.Option(..., "--out", "-o", help="PNG file for the before/after still."),
     line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
     reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
@@ -49,8 +50,6 @@ def preview_command(
     choice(border, BORDERS, "--border")
     if Path(out).suffix.lower() != ".png":
         raise UsageProblem(f"--out {out}: the still is written as PNG; give a .png name")
-    if frame < 0:
-        raise UsageProblem(f"--frame must be 0 or more, not {frame}")
     check_new_file(out, force, "--out")
     check_distinct_outputs(clip, {"--out": out})
     rate = parse_rate(fps)
@@ -58,13 +57,11 @@ def preview_command(
     plan = plan_readout(readout, line_order, lens)
     with TerminalProgress(quiet) as progress:
         analysis = analyse(clip, rate, progress=progress)
-    if frame >= analysis.n_frames:
-        raise InputError(f"{clip}: has {analysis.n_frames} frames (0 to {analysis.n_frames - 1}); "
-                         f"there is no frame {frame}")
+    index = frame_index(clip, analysis.info, analysis.n_frames, frame)
     clock, solved = solve_with_model(analysis, plan, request)
     warper = FrameWarper(solved, clock, RenderSettings(reference_line, border), analysis.info)
-    before = decoded_frame_at(clip, rate, frame)
-    after, _ = warper.apply(frame, before.planes, before.subsampling)
+    before = decoded_frame_at(clip, rate, index)
+    after, _ = warper.apply(index, before.planes, before.subsampling)
     info = analysis.info
     png = still_png(planes_to_rgb(before.planes, before.pix_fmt, info, 8),
                     planes_to_rgb(after, before.pix_fmt, info, 8))
@@ -72,5 +69,5 @@ def preview_command(
     typer.echo(f"note: motion model: {solved.kind.summary()}"
                + (f" ({solved.model_reason})" if solved.model_reason else ""), err=True)
     if not quiet:
-        typer.echo(f"wrote {out} (frame {frame}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
+        typer.echo(f"wrote {out} (frame {index + first_frame_number(info)}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
                    err=True)

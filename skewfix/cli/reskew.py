@@ -1,5 +1,6 @@
 """`skewfix reskew`: put the rolling shutter of a saved motion file back onto a clean clip or
-sequence (CG, a corrected plate) of the same size and frame count."""
+sequence (CG, a corrected plate) of the same frame count, the plate's size or larger
+(centred overscan, `skewfix.overscan`)."""
 
 from __future__ import annotations
 
@@ -12,7 +13,7 @@ from skewfix.cli.deliverables import check_distinct_outputs, check_output_option
 from skewfix.cli.options import choice
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.sequence import check_sequence_output, is_pattern, open_sink
+from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
 
 RESKEW_BORDERS = ("edge", "black")
 
@@ -27,35 +28,45 @@ def reskew_command(
     crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of a sequence input "
                                                            "(default: the motion file's)."),
-    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for sequence output "
-                                                               "(default: as the input; deeper than 8 goes to 16)."),
+    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for PNG/TIFF output (default: as "
+                                                               "the input; deeper than 8 goes to 16); 16 (half) "
+                                                               "or 32 (float) for EXR."),
     border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge or black."),
+    overscan: Optional[str] = typer.Option(None, "--overscan", metavar="1.1|96px|96,54px",
+                                           help="INPUT is larger than the plate, centred on it: by a factor "
+                                                "(1.1) or a margin on each side in pixels; OUTPUT keeps INPUT's size."),
     force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
 ):
-    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT."""
+    """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT.
+
+    INPUT has the plate's frame count and size, or is larger and centred on the plate
+    with --overscan (CG rendered with overscan); OUTPUT keeps INPUT's size.
+    """
     from skewfix.rowclock import parse_rate
     from skewfix.decode import open_source
     from skewfix.encode import DeferredSink, check_output_path
     from skewfix.motionfile import load_motion
-    from skewfix.pipeline import FrameWarper, RenderSettings, render
+    from skewfix.overscan import OverscanReskewWarper, clean_frame_margins, parse_overscan
+    from skewfix.pipeline import RenderSettings, render
 
     choice(border, RESKEW_BORDERS, "--border")
+    asked_overscan = parse_overscan(overscan)
     check_output_options(output, {"codec": codec, "crf": crf, "depth": depth})
     model, clock, reference_line, meta = load_motion(motion)
     check_output_path(input, output, force)
     if is_pattern(output):
         check_sequence_output(input, output, force)
     check_distinct_outputs(input, {"OUTPUT": output, "--motion": motion})
+    check_float_output(input, output)
     rate = parse_rate(fps) or meta["frame_rate"]
     if is_pattern(input) and rate is None:
         raise UsageProblem(f"{input}: give the sequence's frame rate with --fps (the motion file has none)")
     source = open_source(input, rate)  # opened once: checked here, then streamed by the render
     try:
         info = source.info
-        if (info.width, info.height) != (model.width, model.height):
-            raise InputError(f"{input}: is {info.width}x{info.height} but the motion in {motion} was solved on "
-                             f"{model.width}x{model.height} frames; reskew needs the same size")
+        margins = clean_frame_margins(asked_overscan, (model.width, model.height), (info.width, info.height),
+                                      input, motion)
         expected = len(clock.frame_times)
         found = count_frames(input, info)
         if found != expected:
@@ -64,7 +75,8 @@ def reskew_command(
     except BaseException:
         source.close()
         raise
-    warper = FrameWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info)
+    warper = OverscanReskewWarper(model, clock, RenderSettings(reference_line, border, direction="reskew"), info,
+                                  margins)
 
     def open_output():
         # with the first picture, when the first frame has told the display rotation
