@@ -8,9 +8,7 @@ scene-linear plate with highlights.
 from __future__ import annotations
 
 import csv
-from fractions import Fraction
 
-import cv2
 import numpy as np
 import OpenEXR
 import pytest
