@@ -18,7 +18,7 @@ from typing import Iterator
 
 import numpy as np
 
-from skewfix.errors import InputError
+from skewfix.errors import InputError, plain_media_error
 
 # Packed formats that cannot be remapped plane by plane are converted to these.
 _PLANAR_FALLBACK = {8: "yuv420p", 10: "yuv420p10le", 12: "yuv420p12le", 16: "yuv420p16le"}
@@ -157,7 +157,7 @@ class VideoSource:
                 raise InputError(f"{self.path}: an MP4/MOV file without its index (moov box), which is written "
                                  "last: the file was probably cut short (copied only in part?); copy it again "
                                  "from the card") from None
-            raise InputError(f"{self.path}: not a readable video file ({_short(exc)})") from None
+            raise InputError(f"{self.path}: not a readable video file: {_short(exc)}") from None
         videos = [s for s in self._container.streams if s.type == "video" and s.codec_context is not None]
         if not videos:
             audio = any(s.type == "audio" for s in self._container.streams)  # before close() empties it
@@ -404,8 +404,8 @@ class FrameLossCounter:
 
 
 def _short(exc: Exception) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    return text[:160]
+    """A decoder's error in plain words (`skewfix.errors.plain_media_error`)."""
+    return plain_media_error(exc)
 
 
 def open_source(path: str | os.PathLike, fps: Fraction | None = None):

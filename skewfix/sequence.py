@@ -332,15 +332,15 @@ def planes_to_rgb(planes: list[np.ndarray], pix_fmt: str, info: VideoInfo, bits:
 # --------------------------------------------------------------------------
 
 def check_sequence_output(input_path: str, output: str, force: bool) -> FramePattern:
-    """Refuse a sequence OUTPUT that is the INPUT sequence, lives in a missing folder, or exists without --force."""
+    """Refuse a sequence OUTPUT that is the INPUT sequence, lives in a folder that cannot be written
+    (or made), or exists without --force."""
     pattern = parse_pattern(output)
     check_image_format(pattern)
     if is_pattern(input_path) and parse_pattern(input_path).same_sequence(pattern):
         raise UsageProblem(f"{output}: OUTPUT is the same sequence as INPUT; the input is never overwritten")
-    if not pattern.folder.is_dir():
-        raise UsageProblem(f"{output}: folder {pattern.folder} does not exist")
-    if not os.access(pattern.folder, os.W_OK):
-        raise InputError(f"{output}: folder {pattern.folder} is not writable")
+    from skewfix.encode import check_folder
+
+    check_folder(pattern.folder, output, may_create=True)  # a missing folder is made at commit
     existing = pattern.numbers_present()
     if existing and not force:
         raise UsageProblem(f"{output}: {len(existing)} file(s) of this sequence already exist, e.g. "
@@ -354,16 +354,18 @@ class StagedSequence:
     The staging folder sits beside the target folder (same file system, so the
     moves are renames). With ``force``, files of the same sequence left over
     from an earlier run are removed at commit, so the result is one sequence.
-    ``create_folder`` lets the target folder itself be new (``--save-maps DIR``).
+    A target folder that does not exist yet (with its missing parents) is
+    made at commit; until then the files wait beside its nearest existing parent.
     """
 
-    def __init__(self, pattern: FramePattern, first_number: int, force: bool = False,
-                 create_folder: bool = False):
+    def __init__(self, pattern: FramePattern, first_number: int, force: bool = False):
+        from skewfix.files import nearest_existing
+
         self.pattern, self.first_number, self.force = pattern, first_number, force
         self._numbers: list[int] = []
-        home = pattern.folder if pattern.folder.is_dir() else pattern.folder.parent
-        if not pattern.folder.is_dir() and not (create_folder and home.is_dir()):
-            raise UsageProblem(f"{pattern.text}: folder {pattern.folder} does not exist")
+        home = nearest_existing(pattern.folder)
+        if not home.is_dir():
+            raise UsageProblem(f"{pattern.text}: folder {pattern.folder} cannot be made: {home} is a file")
         if not force and pattern.numbers_present():
             raise UsageProblem(f"{pattern.text}: files of this sequence already exist (add --force to replace them)")
         try:
@@ -390,7 +392,7 @@ class StagedSequence:
     def commit(self) -> Path:
         """Move every staged file into place; returns the target folder."""
         folder = self.pattern.folder
-        folder.mkdir(exist_ok=True)
+        folder.mkdir(parents=True, exist_ok=True)
         stale = set(self.pattern.numbers_present()) - set(self._numbers) if self.force else set()
         for number in self._numbers:
             name = self.pattern.name_for(number)

@@ -197,7 +197,7 @@ class FixDeliverables:
         try:
             if self.maps_dir is not None:
                 for name in MAP_NAMES:
-                    self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force, create_folder=True)
+                    self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force)
             if self._matte_pattern is not None:
                 self._matte = StagedSequence(self._matte_pattern, first, self.force)
             return open_sink(self.input, self.output, info, force=self.force, template=template,
