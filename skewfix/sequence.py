@@ -186,9 +186,10 @@ def _as_rate(fps) -> Fraction:
 
 
 class ImageSequenceSource:
-    """A numbered image sequence opened like a clip (the `VideoSource` interface)."""
+    """A numbered image sequence opened like a clip (the `VideoSource` interface); with
+    ``frames`` (a `skewfix.framerange.FrameRange`) only those files are read."""
 
-    def __init__(self, pattern: str | os.PathLike, fps=None):
+    def __init__(self, pattern: str | os.PathLike, fps=None, frames=None):
         self.pattern = parse_pattern(pattern)
         check_image_format(self.pattern)
         if fps is None:
@@ -196,6 +197,13 @@ class ImageSequenceSource:
                                "give one with --fps (e.g. 24 or 24000/1001)")
         rate = _as_rate(fps)
         self.numbers = find_frame_numbers(self.pattern)
+        first_index = 0
+        if frames is not None:  # resolved against the whole sequence's numbers
+            whole = VideoInfo(path=self.pattern.text, width=0, height=0, pix_fmt="", bit_depth=8, codec="",
+                              profile=None, rate=rate, time_base=Fraction(1) / rate, frame_count=len(self.numbers),
+                              duration_s=None, is_sequence=True, first_number=self.numbers[0])
+            first_index, last_index = frames.resolve(whole, len(self.numbers))
+            self.numbers = self.numbers[first_index:last_index + 1]
         first = read_image_rgb(self.pattern.path_for(self.numbers[0]))
         self._shape, self._dtype = first.shape, first.dtype
         depth = 16 if first.dtype == np.uint16 else 8
@@ -207,6 +215,7 @@ class ImageSequenceSource:
             codec="tiff" if self.pattern.extension.startswith(".tif") else "png", profile=None,
             rate=rate, time_base=Fraction(1) / rate, frame_count=n, duration_s=float(n / rate),
             container="image sequence", is_sequence=True, first_number=self.numbers[0], is_rgb=True,
+            first_index=first_index,
         )
         self.lost_frames = 0
         self.decode_errors: list[str] = []

@@ -36,11 +36,12 @@ MAP_NAMES = ("correct_map", "reskew_map")
 # Helpers shared by the commands
 # --------------------------------------------------------------------------
 
-def decoded_frame_at(path: str, fps, index: int):
-    """Decode frames of ``path`` up to ``index`` and return that `DecodedFrame`."""
+def decoded_frame_at(path: str, fps, index: int, frames=None):
+    """Decode frames of ``path`` (of its ``frames`` range, if given) up to ``index`` and return
+    that `DecodedFrame`."""
     from skewfix.decode import open_source
 
-    with open_source(path, fps) as source:
+    with open_source(path, fps, frames) as source:
         for frame in source.frames():
             if frame.index == index:
                 return frame
