@@ -55,6 +55,20 @@ class VideoInfo:
         return float(1 / self.rate) if self.rate else None
 
 
+def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
+    """The value of black in each plane: 0 in RGB; in Y'CbCr, luma 0 (full range) or 16 (limited
+    range) and chroma at its middle, 128, both scaled by 2^(bits-8) (ITU-R BT.601-7, BT.709-6
+    section 4)."""
+    top = (1 << info.bit_depth) - 1
+    if info.is_rgb:
+        return [0.0] * n_planes
+    full = str(info.color.get("color_range")) in ("2", "JPEG", "ColorRange.JPEG") or info.pix_fmt.startswith("yuvj")
+    shift = info.bit_depth - 8
+    luma = 0.0 if full else float(16 << shift)
+    mid = float(128 << shift) if shift >= 0 else top / 2.0
+    return [luma] + [mid] * (n_planes - 1)
+
+
 @dataclass
 class DecodedFrame:
     """One frame: planes at native depth, its index, time (s) and raw pts."""

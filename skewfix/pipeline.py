@@ -26,7 +26,7 @@ from typing import Callable
 import numpy as np
 
 from skewfix.buffers import PlanePool
-from skewfix.decode import VideoInfo, open_source
+from skewfix.decode import VideoInfo, black_levels, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.models.choice import LensSpec, ModelChoice, choose_model
 from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion,
@@ -195,18 +195,6 @@ def choose_with_readout(analysis: Analysis, request: str, lens: LensSpec, readou
         if getattr(again.kind, "translation_only", False):
             chosen = again
     return readout, line_order, origin, chosen
-
-
-def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
-    """The value of black in each plane (limited-range YUV unless tagged full)."""
-    top = (1 << info.bit_depth) - 1
-    if info.is_rgb:
-        return [0.0] * n_planes
-    full = str(info.color.get("color_range")) in ("2", "JPEG", "ColorRange.JPEG") or info.pix_fmt.startswith("yuvj")
-    shift = info.bit_depth - 8
-    luma = 0.0 if full else float(16 << shift)
-    mid = float(128 << shift) if shift >= 0 else top / 2.0
-    return [luma] + [mid] * (n_planes - 1)
 
 
 @dataclass

@@ -45,7 +45,7 @@ from typing import Iterator
 import cv2
 import numpy as np
 
-from skewfix.decode import DecodedFrame, VideoInfo
+from skewfix.decode import DecodedFrame, VideoInfo, black_levels
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.rowclock import frame_times_from_rate, parse_rate
 
@@ -316,8 +316,6 @@ def planes_to_rgb(planes: list[np.ndarray], pix_fmt: str, info: VideoInfo, bits:
     converted by FFmpeg's swscale to ``rgb48le`` first.
     """
     import av
-
-    from skewfix.pipeline import black_levels
 
     fmt = av.VideoFormat(pix_fmt)
     src_bits = max(c.bits for c in fmt.components)
