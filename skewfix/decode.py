@@ -161,9 +161,9 @@ def _rotation_of(stream) -> int:
 def _start_timecode(container, stream) -> str | None:
     """The clip's timecode of its first frame (``timecode`` tag of the video, the file or a timecode track)."""
     for tags in [stream.metadata, container.metadata] + [s.metadata for s in container.streams]:
-        value = tags.get("timecode")
-        if value:
-            return str(value).strip()
+        for key, value in tags.items():
+            if key.lower() == "timecode" and value:  # Matroska spells it TIMECODE
+                return str(value).strip()
     return None
 
 
