@@ -14,7 +14,7 @@ from skimage.metrics import peak_signal_noise_ratio
 from conftest import decode_rgb, run_cli, write_sequence
 from skewfix.errors import UsageProblem
 from skewfix.framerange import parse_frame_range, timecode_to_frames
-from skewfix.synth.shutter import to_uint8, write_rgb_clip
+from skewfix.synth.shutter import write_rgb_clip
 
 run = run_cli
 NTSC = Fraction(30000, 1001)
@@ -147,9 +147,10 @@ def test_timecodes_count_from_the_clips_own_start_timecode(tmp_path, capsys):
 # preview: candidates side by side, and --frames
 # --------------------------------------------------------------------------
 
-def test_preview_candidates_side_by_side_the_right_one_is_closest_to_the_truth(clip_factory, tmp_path, capsys):
+def test_preview_candidates_side_by_side_the_right_one_is_closest_to_the_truth(truth_clip, tmp_path, capsys):
     readout, k = 0.024, 8
-    path, renderer, clock = clip_factory("whip", readout, n_frames=16)
+    clip = truth_clip("whip", readout, n_frames=16)  # rendered by tests/truth.py
+    path, renderer = clip.path, clip.clip
     still = tmp_path / "looks" / "candidates.png"
     code, err = run(capsys, "preview", path, "--readout", "16ms,24ms,32ms", "--frame", k, "--frames", "2-14",
                     "--out", still, "--quiet")
@@ -157,7 +158,7 @@ def test_preview_candidates_side_by_side_the_right_one_is_closest_to_the_truth(c
     panel = cv2.cvtColor(cv2.imread(str(still)), cv2.COLOR_BGR2RGB)
     w, h = renderer.width, renderer.height
     assert panel.shape == (h + 36, 4 * w + 3 * 8, 3)  # as shot and three candidates, 8 px apart
-    truth = to_uint8(renderer.global_view(float(clock.reference_time(k, "middle"))))
+    truth = clip.global_view(k)
     inner = (slice(h // 6, -h // 6), slice(w // 6, -w // 6))  # away from the filled edges
 
     def psnr(i):  # scikit-image's PSNR of panel i against the global-shutter truth
@@ -204,13 +205,13 @@ def test_an_output_folder_made_for_a_run_that_fails_is_removed_again(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in.mp4"]
 
 
-def test_measure_frames_measures_only_that_part(clip_factory, tmp_path, capsys):
+def test_measure_frames_measures_only_that_part(truth_clip, tmp_path, capsys):
     import json
 
     from skewfix.pipeline import analyse
 
     readout = 0.024
-    path = clip_factory("whip", readout, n_frames=24)[0]
+    path = truth_clip("whip", readout, n_frames=24).path  # rendered by tests/truth.py
     assert analyse(str(path), frames=parse_frame_range("4-19")).n_frames == 16
     code, err = run(capsys, "measure", path, "--method", "motion", "--frames", "4-19", "--json",
                     tmp_path / "m.json", "--quiet")
