@@ -416,7 +416,6 @@ class _PacketWindow:
         self.video_done = False
         self.done = False
         self.pending: list = []
-        self.latest_skipped = None
 
     @staticmethod
     def _time(packet):
@@ -427,7 +426,6 @@ class _PacketWindow:
         """A frame before the range was decoded at ``time``: earlier packets can go."""
         if time is None:
             return
-        self.latest_skipped = time
         self.pending = [p for p in self.pending if (self._time(p) or 0) + self._duration(p) >= time]
 
     @staticmethod
