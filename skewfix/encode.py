@@ -174,7 +174,17 @@ class VideoSink:
             cc.thread_count = threads
         if info.rotation:
             self._set_rotation(stream, info.rotation)
+        self._set_timecode(stream)
         self.stream = stream
+
+    def _set_timecode(self, stream):
+        """Carry the source's start timecode over (moved on to a part's first frame): MOV and MP4
+        muxers write it as a timecode track of their own, Matroska as a tag."""
+        from skewfix.framerange import part_start_timecode
+
+        timecode = part_start_timecode(self.info)
+        if timecode:
+            stream.metadata["timecode"] = timecode
 
     def _set_rotation(self, stream, degrees):
         """Carry the display rotation over (the pixels stay in stored orientation)."""
@@ -188,6 +198,8 @@ class VideoSink:
         for s in source.streams:
             if s.type == "video" and s.index == self._source_video_index(source):
                 continue
+            if s.type == "data" and any(key.lower() == "timecode" for key in s.metadata):
+                continue  # a timecode track: written anew from the video's timecode (_set_timecode)
             try:
                 self._copy_map[s.index] = self.container.add_stream_from_template(s)
             except Exception as exc:

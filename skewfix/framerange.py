@@ -76,6 +76,35 @@ def timecode_to_frames(text: str, rate: Fraction | None, what: str = OPTION) -> 
     return count
 
 
+def frames_to_timecode(count: int, rate: Fraction, drop_frame: bool = False) -> str:
+    """The timecode of the frame ``count`` frames after 00:00:00:00 (inverse of `timecode_to_frames`)."""
+    base = nominal_rate(rate)
+    mark = ":"
+    if drop_frame:
+        mark = ";"
+        dropped = 2 * base // 30
+        per_ten = base * 600 - 9 * dropped  # frames in ten minutes
+        per_minute = base * 60 - dropped  # frames in a minute that drops numbers
+        tens, rest = divmod(count, per_ten)
+        count += 9 * dropped * tens + (dropped * ((rest - dropped) // per_minute) if rest >= dropped else 0)
+    frames = count % base
+    seconds = count // base
+    return f"{seconds // 3600 % 24:02d}:{seconds // 60 % 60:02d}:{seconds % 60:02d}{mark}{frames:02d}"
+
+
+def part_start_timecode(info) -> str | None:
+    """The timecode of the first frame delivered (a clip's own start timecode moved on by
+    ``--frames``), for the output to carry; None when the clip has none (or an unreadable one)."""
+    if not info.start_timecode or not info.rate:
+        return None
+    try:
+        start = timecode_to_frames(info.start_timecode, info.rate, "the clip's start timecode")
+    except UsageProblem:
+        return None
+    drop = info.start_timecode.strip()[-3] in ";."
+    return frames_to_timecode(start + info.first_index, info.rate, drop)
+
+
 def _check_end(text: str) -> str:
     text = text.strip()
     if text and not (_NUMBER.match(text) or _TIMECODE.match(text)):

@@ -13,7 +13,7 @@ from skimage.metrics import peak_signal_noise_ratio
 
 from conftest import decode_rgb, run_cli, write_sequence
 from skewfix.errors import UsageProblem
-from skewfix.framerange import parse_frame_range, timecode_to_frames
+from skewfix.framerange import frames_to_timecode, parse_frame_range, timecode_to_frames
 from skewfix.synth.shutter import write_rgb_clip
 
 run = run_cli
@@ -38,6 +38,7 @@ NTSC = Fraction(30000, 1001)
 ])
 def test_timecodes_count_frames_as_the_standard_does(text, rate, frames):
     assert timecode_to_frames(text, rate) == frames
+    assert frames_to_timecode(frames, rate, drop_frame=";" in text) == text  # and back
 
 
 @pytest.mark.parametrize("text,words", [
@@ -141,6 +142,35 @@ def test_timecodes_count_from_the_clips_own_start_timecode(tmp_path, capsys):
     assert len(decode_rgb(tmp_path / "part.mkv")) == 4
     code, err = run(capsys, "fix", path, tmp_path / "early.mkv", "--readout", "0", "--frames", "00:59:59:00-")
     assert code == 1 and "before the clip's start timecode 01:00:00:00" in err
+
+
+def test_a_camera_mov_keeps_its_timecode_track_and_a_part_starts_later(tmp_path, capsys):
+    """Cameras write MOV files with a timecode track; the output carries the timecode (a part's
+    moved on to its first frame), written as a timecode track of its own by FFmpeg's muxer."""
+    rng = np.random.default_rng(6)
+    path = tmp_path / "A001.mov"
+    with av.open(str(path), "w") as out:
+        out.metadata["timecode"] = "01:00:00:00"  # FFmpeg's MOV muxer makes a timecode track of it
+        stream = out.add_stream("libx264", rate=25)
+        stream.width, stream.height, stream.pix_fmt = 96, 64, "yuv420p"
+        for k in range(10):
+            frame = av.VideoFrame.from_ndarray(rng.integers(0, 256, (64, 96, 3), dtype=np.uint8), format="rgb24")
+            frame.pts = k
+            for packet in stream.encode(frame):
+                out.mux(packet)
+        for packet in stream.encode():
+            out.mux(packet)
+
+    def timecodes(clip):
+        with av.open(str(clip)) as c:
+            return {s.type: s.metadata.get("timecode") for s in c.streams}
+
+    assert timecodes(path) == {"video": "01:00:00:00", "data": "01:00:00:00"}
+    for frames, name, expected in ((None, "whole.mov", "01:00:00:00"), ("3-8", "part.mov", "01:00:00:03")):
+        code, err = run(capsys, "fix", path, tmp_path / name, "--readout", "0", "--quiet",
+                        *(("--frames", frames) if frames else ()))
+        assert code == 0, err
+        assert timecodes(tmp_path / name) == {"video": expected, "data": expected}
 
 
 # --------------------------------------------------------------------------
