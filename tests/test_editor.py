@@ -247,6 +247,6 @@ def test_measure_frames_measures_only_that_part(truth_clip, tmp_path, capsys):
                     tmp_path / "m.json", "--quiet")
     assert code == 0, err
     result = json.loads((tmp_path / "m.json").read_text())
-    assert len(result["frames_used"]) <= 16
+    assert result["frames_used"] and set(result["frames_used"]) <= set(range(4, 20))  # the clip's numbers
     # the motion method on a whip pan: within 15 % of the rendered readout (common practice)
     assert result["readout_ms"] == pytest.approx(readout * 1e3, rel=0.15)

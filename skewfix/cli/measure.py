@@ -18,7 +18,7 @@ from skewfix.cli.options import (choice, distortion_option, focal_option, frames
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
-from skewfix.framerange import parse_frame_range
+from skewfix.framerange import first_delivered_number, parse_frame_range
 from skewfix.rowclock import clip_frame_interval, parse_duration, parse_rate
 
 METHODS = ("auto", "flicker", "pan", "motion")
@@ -312,6 +312,9 @@ def measure_command(
     if estimate is None:
         raise MeasurementRefused("no method could measure this clip: "
                                  + "; ".join(f"{name}: {why}" for name, why in refused))
+    if measurer.frames is not None:  # --frames: the frames used in the clip's numbering, not the part's
+        first = first_delivered_number(measurer.info)
+        estimate.frames_used = [first + int(k) for k in estimate.frames_used]
 
     if quiet:
         typer.echo(f"readout {estimate.readout_s * 1e3:.3f} ms ± {estimate.uncertainty_s * 1e3:.3f} ms "
