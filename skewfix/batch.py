@@ -94,6 +94,7 @@ class ClipOutcome:
     input_size: int | None = None
     input_mtime_ns: int | None = None
     output_size: int | None = None
+    notes: list[str] = field(default_factory=list)  # what fix says about the clip: the readout's origin, notes
 
 
 # -- reading the job list ------------------------------------------------------
@@ -330,8 +331,9 @@ def run_clip(job: ClipJob, replace: bool = False) -> ClipOutcome:
         return ClipOutcome(job.name, job.output, "failed", seconds=time.perf_counter() - start,
                            message=_one_line(f"unexpected {type(exc).__name__}: {exc}"))
     message = "; ".join([f"readout {result.readout * 1e3:.3f} ms ({result.line_order})"] + result.notes)
+    said = f"readout {result.readout * 1e3:.3f} ms ({result.line_order}, {result.readout_origin})"  # as fix says it
     return ClipOutcome(job.name, job.output, "done", result.frames_written, time.perf_counter() - start,
-                       _one_line(message), size, mtime, os.path.getsize(job.output))
+                       _one_line(message), size, mtime, os.path.getsize(job.output), notes=[said, *result.notes])
 
 
 def _crashed(job: ClipJob, exc: BaseException) -> ClipOutcome:

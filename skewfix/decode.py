@@ -18,7 +18,7 @@ from typing import Iterator
 
 import numpy as np
 
-from skewfix.errors import InputError
+from skewfix.errors import InputError, plain_media_error
 
 # Packed formats that cannot be remapped plane by plane are converted to these.
 _PLANAR_FALLBACK = {8: "yuv420p", 10: "yuv420p10le", 12: "yuv420p12le", 16: "yuv420p16le"}
@@ -47,10 +47,26 @@ class VideoInfo:
     is_sequence: bool = False
     first_number: int | None = None
     is_rgb: bool = False
+    start_timecode: str | None = None  # the clip's own timecode of its first frame, if it carries one
+    first_index: int = 0  # with --frames: where the first frame delivered sits in the whole clip
 
     @property
     def frame_interval(self) -> float | None:
         return float(1 / self.rate) if self.rate else None
+
+
+def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
+    """The value of black in each plane: 0 in RGB; in Y'CbCr, luma 0 (full range) or 16 (limited
+    range) and chroma at its middle, 128, both scaled by 2^(bits-8) (ITU-R BT.601-7, BT.709-6
+    section 4)."""
+    top = (1 << info.bit_depth) - 1
+    if info.is_rgb:
+        return [0.0] * n_planes
+    full = str(info.color.get("color_range")) in ("2", "JPEG", "ColorRange.JPEG") or info.pix_fmt.startswith("yuvj")
+    shift = info.bit_depth - 8
+    luma = 0.0 if full else float(16 << shift)
+    mid = float(128 << shift) if shift >= 0 else top / 2.0
+    return [luma] + [mid] * (n_planes - 1)
 
 
 @dataclass
@@ -142,10 +158,25 @@ def _rotation_of(stream) -> int:
     return 0
 
 
-class VideoSource:
-    """A clip opened for streaming; iterate `frames()` (and `packets` for copy)."""
+def _start_timecode(container, stream) -> str | None:
+    """The clip's timecode of its first frame (``timecode`` tag of the video, the file or a timecode track)."""
+    for tags in [stream.metadata, container.metadata] + [s.metadata for s in container.streams]:
+        for key, value in tags.items():
+            if key.lower() == "timecode" and value:  # Matroska spells it TIMECODE
+                return str(value).strip()
+    return None
 
-    def __init__(self, path: str | os.PathLike):
+
+class VideoSource:
+    """A clip opened for streaming; iterate `frames()` (and `packets` for copy).
+
+    With ``frames`` (a `skewfix.framerange.FrameRange`) only those frames are
+    delivered: numbered from 0, timed and timestamped from the first of them,
+    with the other streams' packets of the same stretch of time, retimed
+    alike; ``info`` then describes that part (``frame_count``, ``first_index``).
+    """
+
+    def __init__(self, path: str | os.PathLike, frames=None):
         import av
 
         self.path = str(path)
@@ -157,7 +188,7 @@ class VideoSource:
                 raise InputError(f"{self.path}: an MP4/MOV file without its index (moov box), which is written "
                                  "last: the file was probably cut short (copied only in part?); copy it again "
                                  "from the card") from None
-            raise InputError(f"{self.path}: not a readable video file ({_short(exc)})") from None
+            raise InputError(f"{self.path}: not a readable video file: {_short(exc)}") from None
         videos = [s for s in self._container.streams if s.type == "video" and s.codec_context is not None]
         if not videos:
             audio = any(s.type == "audio" for s in self._container.streams)  # before close() empties it
@@ -201,7 +232,22 @@ class VideoSource:
             other_streams=len(others),
             has_audio=any(s.type == "audio" for s in others),
             is_rgb=bool(fmt and (fmt.is_rgb if hasattr(fmt, "is_rgb") else fmt.name.startswith(("rgb", "bgr", "gbr")))),
+            start_timecode=_start_timecode(self._container, self.stream),
         )
+        self._listed_frames = self.info.frame_count
+        self.span = None  # (first, last) positions in the clip with --frames; last None: to the end
+        if frames is not None:
+            try:
+                self.span = frames.resolve(self.info, self.info.frame_count)
+            except BaseException:
+                self._container.close()
+                raise
+            self.frame_range = frames
+            first, last = self.span
+            self.info.first_index = first
+            if last is not None:
+                self.info.frame_count = last - first + 1
+                self.info.duration_s = float(self.info.frame_count / self.info.rate) if self.info.rate else None
         self.lost_frames = 0
         self.decode_errors: list[str] = []
         # demux() may run on another thread: close() waits for the FFmpeg call in
@@ -240,6 +286,8 @@ class VideoSource:
         corrupt file yields every decodable frame; once the whole file has been
         read, ``lost_frames`` counts the frames it promised but did not deliver
         and ``decode_errors`` says where they went missing (`FrameLossCounter`).
+        With a frame range, frames before it are decoded but not delivered, and
+        reading stops once the other streams have caught up with its last frame.
         """
         import av
 
@@ -247,11 +295,14 @@ class VideoSource:
         # before a damaged packet and swallow its error, so losses would go unseen.
         self.stream.thread_type = "SLICE"
         streams = list(self._container.streams) if copy_streams else [self.stream]
-        index = 0
-        t0 = None
+        copy_streams = len(streams) > 1  # other streams to copy: read on after a range's last frame
+        first, last = self.span or (0, None)
+        index = 0  # position in the whole clip of the next decoded frame
         tb = self.stream.time_base
-        losses = FrameLossCounter(self.info.frame_interval, self.info.frame_count, *self._end_time())
+        window = _PacketWindow(self.info.frame_interval, self.span is not None)
+        losses = FrameLossCounter(self.info.frame_interval, self._listed_frames, *self._end_time())
         packets = self._container.demux(*streams)
+        first_error = ""
         while True:
             with self.io_lock:
                 if self._closed:
@@ -265,7 +316,12 @@ class VideoSource:
                     break
             if packet.stream.index != self.stream.index:
                 if packet.dts is not None:
-                    yield "packet", packet
+                    kept = window.take(packet)
+                    yield from (("packet", p) for p in kept)
+                    if window.done:
+                        break
+                continue
+            if window.video_done:
                 continue
             if packet.size:
                 losses.packets += 1
@@ -280,13 +336,31 @@ class VideoSource:
                         first_error = f"first decoder error near frame {index}: {_short(exc)}"
                     continue
             for frame in frames:
+                if index == 0:
+                    # display rotation lives in the frame's side data (display matrix);
+                    # rows stay in the *stored* orientation, where the sensor read them
+                    self.info.rotation = int(getattr(frame, "rotation", 0) or 0) % 360 or self.info.rotation
                 pts_time = self._pts_time(frame, tb)
-                yield "frame", self._wrap(frame, index, tb, t0)
-                if t0 is None:
-                    t0 = pts_time
                 losses.frame(None if pts_time is None else float(pts_time))
                 index += 1
-        self.lost_frames, where = losses.report()
+                if index - 1 < first:
+                    window.passed(pts_time)
+                    continue
+                if last is not None and index - 1 > last:
+                    continue
+                if window.start is None:
+                    window.begin(pts_time, frame.pts)
+                    yield from (("packet", p) for p in window.held())
+                yield "frame", self._wrap(frame, index - 1 - first, tb, window)
+                if last is not None and index - 1 == last:
+                    window.end(pts_time)
+            if window.done or (window.video_done and not copy_streams):
+                break
+        if self.span is not None and (index <= (last if last is not None else first)):
+            from skewfix.framerange import past_the_end
+
+            raise InputError(past_the_end(self.info, index, self.frame_range, last if last is not None else first))
+        self.lost_frames, where = losses.report(complete=not window.video_done)
         self.decode_errors[:0] = where + ([first_error] if losses.failed else [])
 
     def _end_time(self) -> tuple[float | None, bool]:
@@ -303,25 +377,99 @@ class VideoSource:
         pts = frame.pts if frame.pts is not None else frame.dts
         return None if pts is None else Fraction(pts) * Fraction(tb)
 
-    def _wrap(self, frame, index, tb, t0) -> DecodedFrame:
-        if index == 0:
-            # display rotation lives in the frame's side data (display matrix);
-            # rows stay in the *stored* orientation, where the sensor read them
-            self.info.rotation = int(getattr(frame, "rotation", 0) or 0) % 360 or self.info.rotation
+    def _wrap(self, frame, index, tb, window: "_PacketWindow") -> DecodedFrame:
         t = self._pts_time(frame, tb)
         if t is None:
             rate = self.info.rate or Fraction(25)
             t = Fraction(index) / rate
-        start = t0 if t0 is not None else t
+        start = window.start if window.start is not None else t
+        pts = frame.pts
+        if self.span is not None and pts is not None and window.start_pts is not None:
+            pts -= window.start_pts  # a part of the clip starts at 0, as a clip of its own
         frame = self._convert(frame)
         planes, subs = frame_planes(frame, self.pool)
         depth = max((c.bits for c in frame.format.components), default=8)
-        return DecodedFrame(index, float(t - start), frame.pts, planes, subs, depth, self.info.is_rgb, frame.format.name)
+        return DecodedFrame(index, float(t - start), pts, planes, subs, depth, self.info.is_rgb, frame.format.name)
 
     def frames(self) -> Iterator[DecodedFrame]:
         for kind, item in self.demux(copy_streams=False):
             if kind == "frame":
                 yield item
+
+
+class _PacketWindow:
+    """Which packets of the other streams (audio, data) go with the frames delivered.
+
+    For a whole clip: all of them, as they come. For a frame range: those whose
+    time falls from the first delivered frame's time up to one frame interval
+    after the last one's, moved earlier by the first frame's time (so sound and
+    picture keep in step); packets read before the first frame is known wait
+    in ``pending`` (only those not already earlier than a skipped frame).
+    Reading ends (``done``) with the first packet of another stream past the end.
+    """
+
+    def __init__(self, interval: float | None, ranged: bool):
+        self.interval, self.ranged = interval or 0.0, ranged
+        self.start = None  # time (Fraction s) of the first delivered frame
+        self.start_pts = None
+        self.stop = None  # end of the delivered stretch (s), once the last frame is known
+        self.video_done = False
+        self.done = False
+        self.pending: list = []
+
+    @staticmethod
+    def _time(packet):
+        ts = packet.pts if packet.pts is not None else packet.dts
+        return None if ts is None or not packet.time_base else Fraction(ts) * Fraction(packet.time_base)
+
+    def passed(self, time) -> None:
+        """A frame before the range was decoded at ``time``: earlier packets can go."""
+        if time is None:
+            return
+        self.pending = [p for p in self.pending if (self._time(p) or 0) + self._duration(p) >= time]
+
+    @staticmethod
+    def _duration(packet):
+        return Fraction(packet.duration or 0) * Fraction(packet.time_base or 0)
+
+    def begin(self, time, pts) -> None:
+        self.start = time if time is not None else Fraction(0)
+        self.start_pts = pts
+
+    def end(self, time) -> None:
+        self.video_done = True
+        self.stop = (time if time is not None else Fraction(0)) + Fraction(self.interval)
+
+    def _shifted(self, packet):
+        """The packet moved to the part's own time line, or None when it falls outside it."""
+        t = self._time(packet)
+        if t is None or t < self.start or (self.stop is not None and t >= self.stop):
+            return None
+        offset = round(self.start / Fraction(packet.time_base))
+        if packet.pts is not None:
+            packet.pts -= offset
+        if packet.dts is not None:
+            packet.dts -= offset
+        return packet
+
+    def take(self, packet) -> list:
+        """The packets to pass on now (none, this one, or none until the range begins)."""
+        if not self.ranged:
+            return [packet]
+        if self.start is None:
+            self.pending.append(packet)
+            return []
+        if self.stop is not None:
+            t = self._time(packet)
+            if t is not None and t >= self.stop:
+                self.done = True
+        kept = self._shifted(packet)
+        return [kept] if kept is not None else []
+
+    def held(self) -> list:
+        """Once the first frame is known: the waiting packets that belong to the part."""
+        pending, self.pending = self.pending, []
+        return [p for p in (self._shifted(p) for p in pending) if p is not None]
 
 
 def _mp4_index_missing(path: str) -> bool:
@@ -382,13 +530,15 @@ class FrameLossCounter:
             return 0
         return max(round(uncovered / self.interval) - 1, 0)
 
-    def report(self) -> tuple[int, list[str]]:
-        """(frames lost, one line per place they went missing)."""
+    def report(self, complete: bool = True) -> tuple[int, list[str]]:
+        """(frames lost, one line per place they went missing). ``complete``: the file was read
+        to its end (reading that stopped early, after a frame range, can only see gaps and
+        packets that failed)."""
         if not self.frames:
             return 0, []
         in_gaps = sum(n for _, _, n in self.gaps)
-        at_end = self._missing_at_end(in_gaps)
-        undelivered = max(self.packets - self.frames, self.failed)
+        at_end = self._missing_at_end(in_gaps) if complete else 0
+        undelivered = max(self.packets - self.frames, self.failed) if complete else self.failed
         if not (undelivered or at_end or (self.listed and self.listed > self.frames)):
             return 0, []
         where = [f"{n} frame(s) missing after frame {k} ({t:.3f} s)" for k, t, n in self.gaps]
@@ -404,15 +554,16 @@ class FrameLossCounter:
 
 
 def _short(exc: Exception) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    return text[:160]
+    """A decoder's error in plain words (`skewfix.errors.plain_media_error`)."""
+    return plain_media_error(exc)
 
 
-def open_source(path: str | os.PathLike, fps: Fraction | None = None):
-    """Open a clip or a numbered image sequence (``name.%04d.ext``)."""
+def open_source(path: str | os.PathLike, fps: Fraction | None = None, frames=None):
+    """Open a clip or a numbered image sequence (``name.%04d.ext``); with ``frames`` (a
+    `skewfix.framerange.FrameRange`) only that part of it."""
     from skewfix.sequence import ImageSequenceSource, is_pattern
 
     text = str(path)
     if is_pattern(text):
-        return ImageSequenceSource(text, fps)
-    return VideoSource(text)
+        return ImageSequenceSource(text, fps, frames)
+    return VideoSource(text, frames)

@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from skewfix.decode import VideoInfo, plane_layout
-from skewfix.errors import InputError, RuntimeProblem, UsageProblem
-from skewfix.files import partial_name
+from skewfix.errors import InputError, RuntimeProblem, UsageProblem, plain_media_error
+from skewfix.files import make_folders, nearest_existing, partial_name, remove_folders
 
 CODECS = {"h264": "libx264", "hevc": "libx265", "prores": "prores_ks", "ffv1": "ffv1"}
 # source codec name -> encoder we use to match it
@@ -112,11 +112,13 @@ class VideoSink:
             self.notes.append(note)
         self.tmp = partial_name(self.output)  # the muxer creates the file
         _UNFINISHED.add(self)  # before the file exists, so a Ctrl-C at any point is cleaned up
+        self._made_folders: list[Path] = []
         try:
+            self._made_folders = make_folders(self.output.parent)  # OUTPUT's folder, when missing
             self.container = av.open(str(self.tmp), "w", options=muxer_options(self.output, info))
         except Exception as exc:
             self._remove_tmp()
-            raise RuntimeProblem(f"{self.output}: cannot write here ({exc})") from None
+            raise RuntimeProblem(f"{self.output}: cannot write here ({plain_media_error(exc)})") from None
         except BaseException:  # Ctrl-C or a kill while opening: leave nothing behind
             self._remove_tmp()
             raise
@@ -139,7 +141,7 @@ class VideoSink:
             stream = self.container.add_stream(self.encoder, rate=rate)
         except Exception as exc:
             raise UsageProblem(f"{self.output}: the {self.output.suffix or 'output'} container cannot hold "
-                               f"{self.encoder} video ({exc}); pick another extension or --codec") from None
+                               f"{self.encoder} video ({plain_media_error(exc)}); pick another extension or --codec") from None
         stream.width, stream.height = info.width, info.height
         stream.pix_fmt = self.pix_fmt
         # The encoder counts in the source's time base so pts pass through
@@ -172,7 +174,17 @@ class VideoSink:
             cc.thread_count = threads
         if info.rotation:
             self._set_rotation(stream, info.rotation)
+        self._set_timecode(stream)
         self.stream = stream
+
+    def _set_timecode(self, stream):
+        """Carry the source's start timecode over (moved on to a part's first frame): MOV and MP4
+        muxers write it as a timecode track of their own, Matroska as a tag."""
+        from skewfix.framerange import part_start_timecode
+
+        timecode = part_start_timecode(self.info)
+        if timecode:
+            stream.metadata["timecode"] = timecode
 
     def _set_rotation(self, stream, degrees):
         """Carry the display rotation over (the pixels stay in stored orientation)."""
@@ -186,10 +198,12 @@ class VideoSink:
         for s in source.streams:
             if s.type == "video" and s.index == self._source_video_index(source):
                 continue
+            if s.type == "data" and any(key.lower() == "timecode" for key in s.metadata):
+                continue  # a timecode track: written anew from the video's timecode (_set_timecode)
             try:
                 self._copy_map[s.index] = self.container.add_stream_from_template(s)
             except Exception as exc:
-                self.notes.append(f"stream {s.index} ({s.type}) could not be copied: {exc}")
+                self.notes.append(f"stream {s.index} ({s.type}) could not be copied: {plain_media_error(exc)}")
 
     @staticmethod
     def _source_video_index(source):
@@ -239,7 +253,7 @@ class VideoSink:
             self.container.close()
         except Exception as exc:
             self.abort()
-            raise RuntimeProblem(f"{self.output}: writing failed ({exc}); nothing was written") from None
+            raise RuntimeProblem(f"{self.output}: writing failed ({plain_media_error(exc)}); nothing was written") from None
         os.replace(self.tmp, self.output)
         _UNFINISHED.discard(self)
         return self.output
@@ -258,6 +272,8 @@ class VideoSink:
                 os.unlink(self.tmp)
         except FileNotFoundError:
             pass
+        remove_folders(getattr(self, "_made_folders", []))
+        self._made_folders = []
 
     @property
     def frames_written(self) -> int:
@@ -335,18 +351,28 @@ def check_output_path(input_path: str, output: str, force: bool) -> None:
             raise UsageProblem(f"{output}: OUTPUT is the same file as INPUT; the input is never overwritten")
         if out.exists() and not force:
             raise UsageProblem(f"{output}: already exists (add --force to replace it)")
-    check_writable_file_path(output)
+    check_writable_file_path(output, may_create=True)
 
 
-def check_writable_file_path(path: str | os.PathLike, label: str = "") -> Path:
-    """Refuse a file path that is a folder, or whose folder is missing or not writable."""
+def check_writable_file_path(path: str | os.PathLike, label: str = "", may_create: bool = False) -> Path:
+    """Refuse a file path that is a folder, or whose folder is not writable; a missing folder
+    is refused too, unless ``may_create`` (it is then made when writing starts)."""
     out = Path(path)
     name = f"{label} {path}".strip()
     if out.is_dir():
         raise UsageProblem(f"{name}: is a folder; give a file name")
     parent = out.parent if str(out.parent) else Path(".")
-    if not parent.is_dir():
-        raise UsageProblem(f"{name}: folder {parent} does not exist")
-    if not os.access(parent, os.W_OK):
-        raise InputError(f"{name}: folder {parent} is not writable")
+    check_folder(parent, name, may_create)
     return out
+
+
+def check_folder(folder: Path, name: str, may_create: bool) -> None:
+    """Refuse a folder that cannot hold new files: missing (unless ``may_create`` and it can be
+    made), in the way of a file, or not writable."""
+    if not folder.is_dir() and not may_create:
+        raise UsageProblem(f"{name}: folder {folder} does not exist")
+    home = nearest_existing(folder)
+    if not home.is_dir():
+        raise UsageProblem(f"{name}: folder {folder} cannot be made: {home} is a file")
+    if not os.access(home, os.W_OK):
+        raise InputError(f"{name}: folder {home} is not writable")

@@ -454,9 +454,6 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
         step = spla.spsolve(lhs.tocsc(), rhs)
         coef[active] = (c_flat + step).reshape(n_act, n_coef)
         seg.coefficients = coef
-        moved = np.max(np.abs(step.reshape(n_act, n_coef)) * scales[active][:, None])
-        if moved < 1e-4 and it > 2:
-            break
     masks = dict(zip((p.k for p in usable), (w > 0 for w in background.weights)))
     return seg, float(np.sum(weights > 0.5)), n, background.warning, masks
 

@@ -117,10 +117,10 @@ def csv_columns(model: MotionModel) -> tuple[str, ...]:
 
 def check_new_file(path: str | os.PathLike, force: bool, option: str) -> None:
     """Refuse an output file that is a folder, exists (without --force), or whose folder is
-    missing or not writable: all before any work is done."""
+    not writable (a missing folder is made when the file is written): all before any work."""
     from skewfix.encode import check_writable_file_path
 
-    check_writable_file_path(path, option)
+    check_writable_file_path(path, option, may_create=True)
     if Path(path).exists() and not force:
         raise UsageProblem(f"{option} {path}: already exists (add --force to replace it)")
 

@@ -26,7 +26,7 @@ from typing import Callable
 import numpy as np
 
 from skewfix.buffers import PlanePool
-from skewfix.decode import VideoInfo, open_source
+from skewfix.decode import VideoInfo, black_levels, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.models.choice import LensSpec, ModelChoice, choose_model
 from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion,
@@ -54,6 +54,7 @@ class Analysis:
     lost_frames: int = 0
     decode_errors: list[str] = field(default_factory=list)
     seconds: dict = field(default_factory=dict)
+    frames: object = None  # the `skewfix.framerange.FrameRange` analysed (None: the whole clip)
 
     @property
     def n_frames(self) -> int:
@@ -93,10 +94,11 @@ def expected_frames(info: VideoInfo) -> int | None:
 
 
 def analyse(path: str, fps: Fraction | None = None, tracker: TrackerSettings | None = None,
-            progress: Progress = _quiet, times: StageTimes | None = None) -> Analysis:
-    """Decode the clip once, tracking global motion between consecutive frames."""
+            progress: Progress = _quiet, times: StageTimes | None = None, frames=None) -> Analysis:
+    """Decode the clip once (only the ``frames`` asked for, a `skewfix.framerange.FrameRange`),
+    tracking global motion between consecutive frames."""
     times = times or StageTimes()
-    source = open_source(path, fps)
+    source = open_source(path, fps, frames)
     with source:
         info = source.info
         total = expected_frames(info)
@@ -118,7 +120,7 @@ def analyse(path: str, fps: Fraction | None = None, tracker: TrackerSettings | N
         errors = list(getattr(source, "decode_errors", []))
     if not frame_times:
         raise InputError(f"{path}: no frame could be decoded")
-    return Analysis(info, np.asarray(frame_times), pts, pairs, lost, errors)
+    return Analysis(info, np.asarray(frame_times), pts, pairs, lost, errors, frames=frames)
 
 
 def solve(analysis: Analysis, readout: float, line_order: str = "top-down",
@@ -193,18 +195,6 @@ def choose_with_readout(analysis: Analysis, request: str, lens: LensSpec, readou
         if getattr(again.kind, "translation_only", False):
             chosen = again
     return readout, line_order, origin, chosen
-
-
-def black_levels(info: VideoInfo, n_planes: int) -> list[float]:
-    """The value of black in each plane (limited-range YUV unless tagged full)."""
-    top = (1 << info.bit_depth) - 1
-    if info.is_rgb:
-        return [0.0] * n_planes
-    full = str(info.color.get("color_range")) in ("2", "JPEG", "ColorRange.JPEG") or info.pix_fmt.startswith("yuvj")
-    shift = info.bit_depth - 8
-    luma = 0.0 if full else float(16 << shift)
-    mid = float(128 << shift) if shift >= 0 else top / 2.0
-    return [luma] + [mid] * (n_planes - 1)
 
 
 @dataclass
@@ -746,6 +736,7 @@ class FixOptions:
     interpolation: str = "cubic"
     model: str = "auto"  # "auto", "similarity" or "rotation" (`skewfix.models.choice`)
     lens: LensSpec = field(default_factory=LensSpec)
+    frames: object = None  # a `skewfix.framerange.FrameRange`: correct (and write) only those frames
 
 
 @dataclass
@@ -777,7 +768,7 @@ def fix_clip(input_path: str, output_path: str, options: FixOptions, progress: P
     limit_malloc_arenas()
     check_output_path(input_path, output_path, options.force)
     # opened once: probed here (refusing early, before any decoding), then streamed by the render
-    source = open_source(input_path, options.fps)
+    source = open_source(input_path, options.fps, options.frames)
     with opencv_threads(opencv_threads_for_render()):
         try:
             return _fix_source(source, input_path, output_path, options, progress, on_frame, readout_resolver,
@@ -829,7 +820,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     whole_clip = readout_resolver is not None or options.border == "crop"
     if whole_clip:
         # --readout auto and --border crop need the whole clip's motion first: analyse, then render
-        analysis = analyse(input_path, options.fps, options.tracker, progress, times)
+        analysis = analyse(input_path, options.fps, options.tracker, progress, times, options.frames)
         readout, line_order, resolved, choice = choose_with_readout(
             analysis, options.model, options.lens, readout, line_order, readout_resolver, options.fit)
         origin = resolved or origin

@@ -48,15 +48,15 @@ from typing import Iterator
 import cv2
 import numpy as np
 
-from skewfix.decode import DecodedFrame, VideoInfo
+from skewfix.decode import DecodedFrame, VideoInfo, black_levels
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.exr import FLOAT_PLANES  # no OpenEXR import: the bindings load on first use
+from skewfix.framerange import VIDEO_FIRST_NUMBER, first_frame_number  # noqa: F401  (re-exported)
 from skewfix.rowclock import frame_times_from_rate, parse_rate
 
 IMAGE_EXTENSIONS = (".png", ".tif", ".tiff")
 FLOAT_EXTENSIONS = (".exr",)
 DEPTHS = (8, 16)
-VIDEO_FIRST_NUMBER = 1
 
 _PRINTF_FIELD = re.compile(r"%(0?)(\d*)d")
 _HASH_FIELD = re.compile(r"#+")
@@ -170,12 +170,6 @@ def check_float_output(input_path: str, output: str) -> None:
         raise float_output_problem(output)
 
 
-def first_frame_number(info: VideoInfo) -> int:
-    """The number of a clip's first frame, as every output and option counts frames: an
-    input sequence's first file number, else 1 (`VIDEO_FIRST_NUMBER`)."""
-    return info.first_number if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
-
-
 def find_frame_numbers(pattern: FramePattern) -> list[int]:
     """The input frame numbers, first to last; a gap or no file at all is an `InputError`."""
     if not pattern.folder.is_dir():
@@ -216,9 +210,10 @@ def _as_rate(fps) -> Fraction:
 
 
 class ImageSequenceSource:
-    """A numbered image sequence opened like a clip (the `VideoSource` interface)."""
+    """A numbered image sequence opened like a clip (the `VideoSource` interface); with
+    ``frames`` (a `skewfix.framerange.FrameRange`) only those files are read."""
 
-    def __init__(self, pattern: str | os.PathLike, fps=None):
+    def __init__(self, pattern: str | os.PathLike, fps=None, frames=None):
         self.pattern = parse_pattern(pattern)
         check_image_format(self.pattern)
         if fps is None:
@@ -226,6 +221,13 @@ class ImageSequenceSource:
                                "give one with --fps (e.g. 24 or 24000/1001)")
         rate = _as_rate(fps)
         self.numbers = find_frame_numbers(self.pattern)
+        first_index = 0
+        if frames is not None:  # resolved against the whole sequence's numbers
+            whole = VideoInfo(path=self.pattern.text, width=0, height=0, pix_fmt="", bit_depth=8, codec="",
+                              profile=None, rate=rate, time_base=Fraction(1) / rate, frame_count=len(self.numbers),
+                              duration_s=None, is_sequence=True, first_number=self.numbers[0])
+            first_index, last_index = frames.resolve(whole, len(self.numbers))
+            self.numbers = self.numbers[first_index:last_index + 1]
         self.is_float = self.pattern.extension in FLOAT_EXTENSIONS
         first = self._read(self.pattern.path_for(self.numbers[0]))
         self._signature = self._signature_of(first)
@@ -233,7 +235,8 @@ class ImageSequenceSource:
         self.times = frame_times_from_rate(n, rate)
         common = dict(path=self.pattern.text, profile=None, rate=rate, time_base=Fraction(1) / rate,
                       frame_count=n, duration_s=float(n / rate), container="image sequence", is_sequence=True,
-                      first_number=self.numbers[0], is_rgb=True)
+                      first_number=self.numbers[0], is_rgb=True,
+                      first_index=first_index)
         if self.is_float:
             from skewfix.exr import ExrInfo
 
@@ -430,15 +433,15 @@ def _swscale_rgb48(planes, pix_fmt: str) -> np.ndarray:
 # --------------------------------------------------------------------------
 
 def check_sequence_output(input_path: str, output: str, force: bool) -> FramePattern:
-    """Refuse a sequence OUTPUT that is the INPUT sequence, lives in a missing folder, or exists without --force."""
+    """Refuse a sequence OUTPUT that is the INPUT sequence, lives in a folder that cannot be written
+    (or made), or exists without --force."""
     pattern = parse_pattern(output)
     check_image_format(pattern)
     if is_pattern(input_path) and parse_pattern(input_path).same_sequence(pattern):
         raise UsageProblem(f"{output}: OUTPUT is the same sequence as INPUT; the input is never overwritten")
-    if not pattern.folder.is_dir():
-        raise UsageProblem(f"{output}: folder {pattern.folder} does not exist")
-    if not os.access(pattern.folder, os.W_OK):
-        raise InputError(f"{output}: folder {pattern.folder} is not writable")
+    from skewfix.encode import check_folder
+
+    check_folder(pattern.folder, output, may_create=True)  # a missing folder is made at commit
     existing = pattern.numbers_present()
     if existing and not force:
         raise UsageProblem(f"{output}: {len(existing)} file(s) of this sequence already exist, e.g. "
@@ -452,16 +455,18 @@ class StagedSequence:
     The staging folder sits beside the target folder (same file system, so the
     moves are renames). With ``force``, files of the same sequence left over
     from an earlier run are removed at commit, so the result is one sequence.
-    ``create_folder`` lets the target folder itself be new (``--save-maps DIR``).
+    A target folder that does not exist yet (with its missing parents) is
+    made at commit; until then the files wait beside its nearest existing parent.
     """
 
-    def __init__(self, pattern: FramePattern, first_number: int, force: bool = False,
-                 create_folder: bool = False):
+    def __init__(self, pattern: FramePattern, first_number: int, force: bool = False):
+        from skewfix.files import nearest_existing
+
         self.pattern, self.first_number, self.force = pattern, first_number, force
         self._numbers: list[int] = []
-        home = pattern.folder if pattern.folder.is_dir() else pattern.folder.parent
-        if not pattern.folder.is_dir() and not (create_folder and home.is_dir()):
-            raise UsageProblem(f"{pattern.text}: folder {pattern.folder} does not exist")
+        home = nearest_existing(pattern.folder)
+        if not home.is_dir():
+            raise UsageProblem(f"{pattern.text}: folder {pattern.folder} cannot be made: {home} is a file")
         if not force and pattern.numbers_present():
             raise UsageProblem(f"{pattern.text}: files of this sequence already exist (add --force to replace them)")
         try:
@@ -505,7 +510,7 @@ class StagedSequence:
     def commit(self) -> Path:
         """Move every staged file into place; returns the target folder."""
         folder = self.pattern.folder
-        folder.mkdir(exist_ok=True)
+        folder.mkdir(parents=True, exist_ok=True)
         stale = set(self.pattern.numbers_present()) - set(self._numbers) if self.force else set()
         for number in self._numbers:
             name = self.pattern.name_for(number)

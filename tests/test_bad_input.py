@@ -36,8 +36,8 @@ from hypothesis import given, strategies as st
 from skewfix.cli import main
 from skewfix.errors import UsageProblem
 from skewfix.rowclock import parse_duration
-from skewfix.synth.residual import residual_flow_rms
-from skewfix.synth.shutter import to_uint8, write_rgb_clip
+from skewfix.synth.shutter import write_rgb_clip
+import truth
 
 PATH_NOT_NAMED_YET = {
     "readout-longer-than-frame": "the readout check in skewfix/pipeline.py (fix_clip) does not name the clip yet",
@@ -289,8 +289,13 @@ def decodable_pts(path: Path) -> tuple[list[int], int]:
 
 
 @pytest.fixture(scope="module")
-def intact(clip_factory):
-    return clip_factory("steady", 0.024, n_frames=DAMAGED_FRAMES, audio=True)
+def intact(tmp_path_factory):
+    """A steady 300 px/s pan with sound, rendered by tests/truth.py (independent of skewfix's
+    row clock and model): (path, the truth clip)."""
+    clip = truth.render_planar_clip(320, 180, DAMAGED_FRAMES, 30, 0.024, truth.SteadyPan(300.0), noise=1.0)
+    path = tmp_path_factory.mktemp("intact") / "intact.mp4"
+    write_rgb_clip(path, clip.frames, Fraction(30), audio_seconds=DAMAGED_FRAMES / 30)
+    return path, clip
 
 
 def make_damaged(intact_path: Path, folder: Path, container: str, how: str) -> tuple[Path, list[int]]:
@@ -322,7 +327,7 @@ def test_plain_mp4_cut_short_is_refused_clearly(intact, tmp_path):
     ("mkv", "garbage"),
 ])
 def test_damaged_clip_is_rescued_with_a_warning(intact, tmp_path, capsys, container, how):
-    intact_path, renderer, clock = intact
+    intact_path, clip = intact
     src, all_pts = make_damaged(intact_path, tmp_path, container, how)
     left, _ = decodable_pts(src)
     lost = len(all_pts) - len(left)
@@ -344,8 +349,8 @@ def test_damaged_clip_is_rescued_with_a_warning(intact, tmp_path, capsys, contai
     fixed = [f.to_ndarray(format="rgb24") for f in decodable(out)[0]]
     damaged = [f.to_ndarray(format="rgb24") for f in decodable(src)[0]]
     for k in (3, 5):
-        truth = to_uint8(renderer.global_view(float(clock.reference_time(k))))
-        assert residual_flow_rms(fixed[k], truth) < min(0.5, 0.5 * residual_flow_rms(damaged[k], truth))
+        view = clip.global_view(float(clip.reference_time(k, (clip.height - 1) / 2)))
+        assert truth.residual_flow(fixed[k], view) < min(0.5, 0.5 * truth.residual_flow(damaged[k], view))
     # the warning says how many frames were lost and where
     notes = [line for line in err.splitlines() if line.startswith("note:") and "missing" in line]
     assert notes and re.search(rf"\b{lost}\b", notes[0]), err

@@ -261,3 +261,25 @@ def test_model_and_lens_settings_reach_fix(clips, tmp_path):
     assert "motion model: 3-D rotation" in wide.message and "motion model: 2-D similarity" in flat.message
     entries = [json.loads(line) for line in (out / LEDGER_NAME).read_text().splitlines()]
     assert {"model": "rotation", "hfov": "90", "readout": "10ms"} in [e["settings"] for e in entries]
+
+
+def test_fix_warnings_reach_the_log_and_outputs_the_table(clips, tmp_path, config_dir, capsys):
+    """A saved camera measured in another mode than the clips' is fix's warning to check the
+    readout; batch keeps it whole in its log, and its table says where each clip went."""
+    cameras = config_dir / "cameras"
+    cameras.mkdir(parents=True)
+    # the clips are 160x90 at 25 fps (the fixture above); the camera was measured at UHD 25p
+    (cameras / "deckcam-uhd25.camera").write_text(
+        "skewfix camera v1\nname: deckcam-uhd25\nreadout_ms: 10.0\nline_order: top-down\n"
+        "width: 3840\nheight: 2160\nframe_rate: 25/1\n", encoding="utf-8")
+    (clips / "broken.mp4").unlink()
+    out = tmp_path / "out"
+    code = main(["batch", str(clips), "--out", str(out), "--readout", "deckcam-uhd25", "--workers", "1"])
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    for name in GOOD:
+        block = captured.err.split(f"done  {name}:", 1)[1].split("\n   done", 1)[0]
+        assert f"-> {name}" in block.splitlines()[0]
+        assert "note: readout 10.000 ms" in block and "resolution differs" in block and "check the readout" in block
+        row = next(line for line in captured.out.splitlines() if line.count(name) == 2)  # clip and output
+        assert "done" in row

@@ -14,12 +14,9 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
+import truth
 from conftest import SMALL_H, SMALL_W, decode_rgb
 from skewfix.pipeline import FixOptions, fix_clip
-from skewfix.rowclock import RowClock, frame_times_from_rate
-from skewfix.synth.paths import SteadyPan
-from skewfix.synth.residual import residual_flow_rms
-from skewfix.synth.shutter import ShutterRenderer, to_uint8, write_rgb_clip
 
 RATE = Fraction(30)
 READOUT = 0.024
@@ -33,19 +30,21 @@ PAN_SPEED = 1500.0  # px/s: a lean of PAN_SPEED * READOUT = 36 px from top to bo
 
 
 class JoinedShots:
-    """Renders the two shots and knows each frame's exact global-shutter view."""
+    """Renders the two shots with tests/truth.py (independent of skewfix) and knows each
+    frame's exact global-shutter view."""
 
-    def __init__(self, panorama):
+    def __init__(self):
         n = SHOT_A + SHOT_B + FADE + DARK
-        self.clock = RowClock(frame_times_from_rate(n, RATE), SMALL_H, READOUT)
-        self.shot_a = ShutterRenderer(panorama, SMALL_W, SMALL_H, SteadyPan(PAN_SPEED),
-                                      origin=(200.0, SMALL_H * 0.25))
-        self.shot_b = ShutterRenderer(panorama, SMALL_W, SMALL_H, SteadyPan(-PAN_SPEED),
-                                      origin=(panorama.shape[1] - 900.0, SMALL_H * 0.25))
+        times = [k / RATE for k in range(n)]
+        self.shot_a = truth.render_planar_clip(SMALL_W, SMALL_H, SHOT_A, RATE, READOUT, truth.SteadyPan(PAN_SPEED),
+                                               noise=1.0, seed=0)
+        self.shot_b = truth.render_planar_clip(SMALL_W, SMALL_H, n - SHOT_A, None, READOUT,
+                                               truth.SteadyPan(-PAN_SPEED), noise=1.0, seed=5,
+                                               frame_times=[float(t) for t in times[SHOT_A:]])
         self.n_frames = n
 
-    def renderer(self, k: int) -> ShutterRenderer:
-        return self.shot_a if k < SHOT_A else self.shot_b
+    def _shot(self, k: int):
+        return (self.shot_a, k) if k < SHOT_A else (self.shot_b, k - SHOT_A)
 
     def gain(self, k: int) -> float:
         fading = k - SHOT_A - SHOT_B
@@ -53,19 +52,25 @@ class JoinedShots:
             return 1.0
         return float(FADE_GAINS[fading]) if fading < FADE else DARK_GAIN
 
+    @staticmethod
+    def _dimmed(img: np.ndarray, gain: float) -> np.ndarray:
+        return np.clip(np.rint(img.astype(np.float32) * gain), 0, 255).astype(np.uint8)
+
     def rolling(self, k: int) -> np.ndarray:
-        return to_uint8(self.renderer(k).rolling(self.clock, k) * self.gain(k))
+        clip, j = self._shot(k)
+        return self._dimmed(clip.frames[j], self.gain(k))
 
     def truth(self, k: int) -> np.ndarray:
-        t_ref = float(self.clock.reference_time(k))
-        return to_uint8(self.renderer(k).global_view(t_ref) * self.gain(k))
+        """The global-shutter view at frame k's middle row's instant (README: --reference-line)."""
+        clip, j = self._shot(k)
+        return self._dimmed(clip.global_view(float(clip.reference_time(j, (SMALL_H - 1) / 2))), self.gain(k))
 
 
 @pytest.fixture(scope="module")
-def joined(panorama, tmp_path_factory):
-    shots = JoinedShots(panorama)
+def joined(tmp_path_factory):
+    shots = JoinedShots()
     path = tmp_path_factory.mktemp("cuts") / "two_shots.mp4"
-    write_rgb_clip(path, (shots.rolling(k) for k in range(shots.n_frames)), RATE)
+    truth.write_clip(path, [shots.rolling(k) for k in range(shots.n_frames)], RATE)
     out = path.with_name("two_shots_fixed.mp4")
     result = fix_clip(str(path), str(out), FixOptions(readout=READOUT))
     return shots, path, out, result
@@ -83,8 +88,8 @@ def test_frames_next_to_the_cut_are_corrected_like_the_rest(joined):
     fixed, original = decode_rgb(out), decode_rgb(src)
     assert len(fixed) == len(original) == shots.n_frames
 
-    def residual(frames, k):
-        return residual_flow_rms(frames[k], shots.truth(k))
+    def residual(frames, k):  # tests/truth.py's residual flow
+        return truth.residual_flow(frames[k], shots.truth(k))
 
     near_cut = [SHOT_A - 2, SHOT_A - 1, SHOT_A, SHOT_A + 1]
     mid_shot = [3, 4, 5, 6, SHOT_A + 4, SHOT_A + 5, SHOT_A + 6]

@@ -213,10 +213,10 @@ MODEL_KEYS = {"model", "model_reason", "focal_length_px", "focal_uncertainty_px"
 
 
 @pytest.fixture(scope="module")
-def whip_clip(clip_factory):
+def whip_clip(truth_clip):
     # a whip pan that speeds up and stops: the motion method can measure it (conftest renders
-    # it with a 20 ms readout at 30 fps)
-    return str(clip_factory("whip", READOUT, n_frames=24)[0])
+    # it with tests/truth.py, independent of skewfix, with a 20 ms readout at 30 fps)
+    return str(truth_clip("whip", READOUT, n_frames=24).path)
 
 
 def test_motion_json_names_the_model(whip_clip, tmp_path, capsys):
@@ -227,8 +227,8 @@ def test_motion_json_names_the_model(whip_clip, tmp_path, capsys):
     assert JSON_KEYS | MODEL_KEYS <= set(data)
     # the renderer's truth: a 20 ms readout (5 %: the motion method's accuracy target)
     assert data["readout_ms"] == pytest.approx(READOUT * 1e3, rel=0.05)
-    # the clip is a flat panorama slid past the frame, which the similarity describes exactly
-    # (skewfix.synth.shutter), so auto keeps it: no focal length
+    # the clip is a flat picture slid past the frame, which the similarity describes exactly
+    # (tests/truth.py's planar clip), so auto keeps it: no focal length
     assert data["model"] == "similarity" and data["model_reason"]
     assert data["focal_length_px"] is None and data["focal_uncertainty_px"] is None
     assert data["focal_given"] is False

@@ -19,15 +19,13 @@ import numpy as np
 import pytest
 from hypothesis import assume, given, strategies as st
 
+import truth
 from skewfix.errors import UsageProblem
 from skewfix.pipeline import FixOptions, fix_clip
-from skewfix.rowclock import RowClock, frame_times_from_rate
-from skewfix.synth.paths import SteadyPan
-from skewfix.synth.residual import residual_flow_rms
-from skewfix.synth.shutter import ShutterRenderer, to_uint8
+from skewfix.rowclock import RowClock  # checked against the published formula below
 
 READOUT = 0.024
-PAN = SteadyPan(vx_px_s=400.0, vy_px_s=60.0)  # a lean of 400 * 0.024 = 9.6 px top to bottom (made here)
+PAN = truth.SteadyPan(400.0, 60.0)  # a lean of 400 * 0.024 = 9.6 px top to bottom (made here)
 # the MPEG 90 kHz clock: time stamps count periods of the 27 MHz system clock / 300
 # (ISO/IEC 13818-1 | ITU-T H.222.0, as ISO/IEC 11172-1 section 2.4.4.3 before it)
 PHONE_CLOCK = Fraction(1, 90000)
@@ -38,22 +36,28 @@ PHONE_CLOCK = Fraction(1, 90000)
 HDR_TAGS = {"color_primaries": 9, "color_trc": 16, "colorspace": 9}
 
 
-class PhoneClip:
-    """A rolling-shutter clip with its exact truth, written like a phone writes it."""
+def frame_times_from_rate(n: int, rate: Fraction) -> np.ndarray:
+    return truth.clip_frame_times(n, rate)
 
-    def __init__(self, panorama, width: int, height: int, times: np.ndarray):
-        self.clock = RowClock(times, height, READOUT)
-        self.renderer = ShutterRenderer(panorama, width, height, PAN, origin=(300.0, 20.0))
+
+class PhoneClip:
+    """A rolling-shutter clip with its exact truth (rendered by tests/truth.py, independent of
+    skewfix's row clock and model), written like a phone writes it."""
+
+    def __init__(self, width: int, height: int, times: np.ndarray):
+        self.clip = truth.PlanarClip(width, height, len(times), None, READOUT, PAN, frame_times=times)
+        self.width, self.height = width, height
 
     def truth(self, k: int) -> np.ndarray:
-        return to_uint8(self.renderer.global_view(float(self.clock.reference_time(k))))
+        """The global-shutter view at frame k's middle row's instant (README: --reference-line)."""
+        return self.clip.global_view(float(self.clip.reference_time(k, (self.height - 1) / 2)))
 
     def write(self, path: Path, pts, time_base: Fraction, rate: Fraction, *, codec="libx264", pix_fmt="yuv420p",
               rotation: int = 0, tags: dict | None = None, deep: bool = False) -> Path:
         tags = tags or {}
         with av.open(str(path), "w") as out:
             stream = out.add_stream(codec, rate=rate)
-            stream.width, stream.height, stream.pix_fmt = self.renderer.width, self.renderer.height, pix_fmt
+            stream.width, stream.height, stream.pix_fmt = self.width, self.height, pix_fmt
             stream.codec_context.time_base = time_base
             stream.time_base = time_base
             if codec in ("libx264", "libx265"):
@@ -64,11 +68,11 @@ class PhoneClip:
             if rotation:
                 stream.set_display_rotation(rotation)
             for k, p in enumerate(pts):
-                img = self.renderer.rolling(self.clock, k)
+                img = self.clip.view(self.clip.row_times(k)) / 255.0  # float RGB in [0, 1]
                 if deep:
                     rgb = av.VideoFrame.from_ndarray((np.clip(img, 0, 1) * 65535 + 0.5).astype(np.uint16), "rgb48le")
                 else:
-                    rgb = av.VideoFrame.from_ndarray(to_uint8(img), "rgb24")
+                    rgb = av.VideoFrame.from_ndarray((np.clip(img, 0, 1) * 255 + 0.5).astype(np.uint8), "rgb24")
                 frame = rgb.reformat(format=pix_fmt)
                 for key, value in tags.items():
                     setattr(frame, key, value)
@@ -109,18 +113,18 @@ def luma_samples(frame) -> np.ndarray:
 def assert_corrected(clip: PhoneClip, before: dict, after: dict, frames=(2, 4)) -> None:
     """Each frame is much closer to its global-shutter truth than the input was (common practice)."""
     for k in frames:
-        truth = clip.truth(k)
-        was, now = residual_flow_rms(before["rgb"][k], truth), residual_flow_rms(after["rgb"][k], truth)
+        view = clip.truth(k)
+        was, now = truth.residual_flow(before["rgb"][k], view), truth.residual_flow(after["rgb"][k], view)
         assert now < min(0.5, 0.5 * was), (k, was, now)
 
 
-def test_variable_frame_rate_keeps_its_timestamps(panorama, tmp_path):
+def test_variable_frame_rate_keeps_its_timestamps(tmp_path):
     steps = [3000, 3400, 2700, 3900, 2400, 3100, 4200, 2200, 3300, 3000, 3500]  # 90 kHz ticks (made here)
     pts = np.concatenate([[0], np.cumsum(steps)])
     times = pts / 90000.0
     # a real VFR clip: frame times stray well away from k / (average rate)
     assert np.max(np.abs(times - frame_times_from_rate(len(pts), Fraction(30)))) > 5e-3
-    clip = PhoneClip(panorama, 320, 180, times)
+    clip = PhoneClip(320, 180, times)
     src = clip.write(tmp_path / "vfr.mp4", pts, PHONE_CLOCK, Fraction(30))
     out = tmp_path / "vfr_fixed.mp4"
     result = fix_clip(str(src), str(out), FixOptions(readout=READOUT))
@@ -131,8 +135,8 @@ def test_variable_frame_rate_keeps_its_timestamps(panorama, tmp_path):
     assert_corrected(clip, before, after, frames=(2, 5, 8))
 
 
-def test_rotation_is_kept_and_rows_stay_stored_rows(panorama, tmp_path):
-    clip = PhoneClip(panorama, 320, 180, frame_times_from_rate(8, Fraction(30)))
+def test_rotation_is_kept_and_rows_stay_stored_rows(tmp_path):
+    clip = PhoneClip(320, 180, frame_times_from_rate(8, Fraction(30)))
     src = clip.write(tmp_path / "portrait.mp4", range(8), Fraction(1, 30), Fraction(30), rotation=90)
     out = tmp_path / "portrait_fixed.mp4"
     fix_clip(str(src), str(out), FixOptions(readout=READOUT))
@@ -149,9 +153,9 @@ def test_rotation_is_kept_and_rows_stay_stored_rows(panorama, tmp_path):
     (1366, 768, "libx264", "yuv420p", ".mp4"),  # a common laptop panel size (common practice)
     (175, 143, "ffv1", "yuv420p", ".mkv"),  # odd both ways: FFV1 allows it (x264/x265 refuse odd 4:2:0)
 ])
-def test_odd_sizes_are_kept(panorama, tmp_path, width, height, codec, pix_fmt, suffix):
+def test_odd_sizes_are_kept(tmp_path, width, height, codec, pix_fmt, suffix):
     n = 6
-    clip = PhoneClip(panorama, width, height, frame_times_from_rate(n, Fraction(30)))
+    clip = PhoneClip(width, height, frame_times_from_rate(n, Fraction(30)))
     src = clip.write(tmp_path / f"odd{suffix}", range(n), Fraction(1, 30), Fraction(30), codec=codec,
                      pix_fmt=pix_fmt)
     out = tmp_path / f"odd_fixed{suffix}"
@@ -163,9 +167,9 @@ def test_odd_sizes_are_kept(panorama, tmp_path, width, height, codec, pix_fmt, s
     assert_corrected(clip, before, after)
 
 
-def test_ten_bit_hdr_keeps_its_colour_tags(panorama, tmp_path):
+def test_ten_bit_hdr_keeps_its_colour_tags(tmp_path):
     n = 6
-    clip = PhoneClip(panorama, 320, 180, frame_times_from_rate(n, Fraction(30)))
+    clip = PhoneClip(320, 180, frame_times_from_rate(n, Fraction(30)))
     src = clip.write(tmp_path / "hdr.mp4", range(n), Fraction(1, 30), Fraction(30), codec="libx265",
                      pix_fmt="yuv420p10le", tags=HDR_TAGS, deep=True)
     out = tmp_path / "hdr_fixed.mp4"

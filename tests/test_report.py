@@ -15,7 +15,6 @@ from skimage.metrics import peak_signal_noise_ratio
 
 from conftest import run_cli
 from skewfix.cli import main
-from skewfix.synth.shutter import to_uint8
 
 READOUT_MS = 20
 FRAME = 5
@@ -114,8 +113,9 @@ def grid_mask(shape) -> np.ndarray:
     return cv2.dilate(lines, np.ones((3, 3), np.uint8)) > 0
 
 
-def test_preview_still_is_closer_to_the_truth_after(whip, tmp_path, capsys):
-    path, renderer, clock = whip
+def test_preview_still_is_closer_to_the_truth_after(truth_clip, tmp_path, capsys):
+    clip = truth_clip("whip", READOUT_MS / 1000, n_frames=10)  # rendered by tests/truth.py
+    path, renderer = clip.path, clip.clip
     still = tmp_path / "still.png"
     # a video's frames are numbered from 1 (README: frame numbers): position FRAME is frame FRAME + 1
     code, err = run(capsys, "preview", path, "--readout", f"{READOUT_MS}ms", "--frame", FRAME + 1, "--out", still,
@@ -125,7 +125,7 @@ def test_preview_still_is_closer_to_the_truth_after(whip, tmp_path, capsys):
     h, w = renderer.height, renderer.width
     assert panel.shape == (h + 36, 2 * w + 8, 3)  # label band above, 8 px gap between the halves
     before, after = panel[36:, :w], panel[36:, w + 8:]
-    truth = to_uint8(renderer.global_view(float(clock.reference_time(FRAME, "middle"))))
+    truth = clip.global_view(FRAME)
     keep = ~grid_mask(truth.shape)
     keep[: h // 6], keep[-h // 6:], keep[:, : w // 6], keep[:, -w // 6:] = False, False, False, False
 

@@ -99,7 +99,9 @@ def test_fix_then_reskew_gives_back_the_plate(plate):
     scores = [central_psnr(cv2.cvtColor(read(folder / f"back.{k + 1:04d}.png"), cv2.COLOR_BGR2RGB), rolling[k])
               for k in range(N)]
     print("fix->reskew central PSNR (dB):", " ".join(f"{s:.1f}" for s in scores))
-    assert min(scores) >= 32.0  # the target for the central part of the frame
+    # the project's target for the round trip's central part (common practice: beyond about
+    # 30 dB PSNR a difference between two pictures is hard to see)
+    assert min(scores) >= 32.0
 
 
 def test_reskew_of_exact_global_views_gives_the_rolling_render(plate, capsys):

@@ -3,7 +3,9 @@
 Every command lives in its own module here and registers itself on `app`.
 `main()` turns every `SkewfixError` and every usage mistake into one line on
 stderr and a non-zero exit status (1 for input and runtime problems, 2 for
-usage), with no traceback unless ``--debug`` or ``SKEWFIX_DEBUG=1``.
+usage), with no traceback unless ``--debug`` (anywhere on the command line)
+or ``SKEWFIX_DEBUG=1``. A run stopped by Ctrl-C exits with 130, by SIGTERM
+with 143, and leaves no partial output.
 """
 
 from __future__ import annotations
@@ -14,7 +16,7 @@ import sys
 
 import typer
 
-from skewfix.errors import SkewfixError
+from skewfix.errors import SkewfixError, plain_media_error
 
 app = typer.Typer(
     add_completion=False,
@@ -23,11 +25,18 @@ app = typer.Typer(
     help="Measure and remove rolling-shutter skew in footage.",
 )
 
-INTERRUPTED = 130  # the shell's status for a run stopped by SIGINT (128 + 2; common practice)
+# A run stopped by a signal exits with 128 + the signal's number, as the shell reports a
+# process killed by it (POSIX shell "Exit Status"; common practice): 130 for SIGINT
+# (Ctrl-C), 143 for SIGTERM (kill).
+INTERRUPTED = 128 + signal.SIGINT
+DEBUG_OPTION = "--debug"
+
+_stopped_by = {"signal": signal.SIGINT}  # which signal stopped the run (SIGINT unless told otherwise)
 
 
 @app.callback()
-def _root(debug: bool = typer.Option(False, "--debug", help="Show full tracebacks on errors.")):
+def _root(debug: bool = typer.Option(False, DEBUG_OPTION, help="Show full tracebacks on errors "
+                                                                "(anywhere on the command line).")):
     """Measure and remove rolling-shutter skew in footage."""
     # the option is read by `main` from the arguments, before any command runs
 
@@ -37,8 +46,16 @@ def fail(message: str, code: int = 1) -> None:
     raise SystemExit(code)
 
 
-def _on_terminate(signum, frame):  # SIGTERM behaves like Ctrl-C: partial output removed
+def _on_terminate(signum, frame):  # SIGTERM behaves like Ctrl-C (partial output removed), exits 143
+    _stopped_by["signal"] = signum
     raise KeyboardInterrupt
+
+
+def split_debug(argv: list[str]) -> tuple[list[str], bool]:
+    """``argv`` without ``--debug`` (wherever it stands before a ``--``), and whether it was there."""
+    end = argv.index("--") if "--" in argv else len(argv)
+    kept = [a for a in argv[:end] if a != DEBUG_OPTION] + argv[end:]
+    return kept, len(kept) != len(argv)
 
 
 def _register_commands():
@@ -66,8 +83,9 @@ def main(argv: list[str] | None = None) -> int:
 
     _register_commands()
     signal.signal(signal.SIGTERM, _on_terminate)
-    argv = list(sys.argv[1:] if argv is None else argv)
-    debug = "--debug" in argv or os.environ.get("SKEWFIX_DEBUG") == "1"
+    _stopped_by["signal"] = signal.SIGINT
+    argv, asked = split_debug(list(sys.argv[1:] if argv is None else argv))
+    debug = asked or os.environ.get("SKEWFIX_DEBUG") == "1"
     try:
         status = app(args=argv, prog_name="skewfix", standalone_mode=False)
     except SkewfixError as exc:
@@ -92,12 +110,12 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:  # last resort: still one line, never a traceback
         if debug:
             raise
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-        typer.echo(f"skewfix: unexpected {type(exc).__name__}: {first} (run with --debug for details)", err=True)
+        typer.echo(f"skewfix: unexpected {type(exc).__name__}: {plain_media_error(exc)} "
+                   "(run with --debug for details)", err=True)
         return 1
     if status == INTERRUPTED:  # recent typer turns Ctrl-C into an exit status of 130 and returns it
         if "skewfix.encode" in sys.modules:  # a clip being written: make sure its temporary file goes
             sys.modules["skewfix.encode"].abort_unfinished()
         typer.echo("skewfix: stopped; nothing was written", err=True)
-        return INTERRUPTED
+        return 128 + int(_stopped_by["signal"])
     return status if type(status) is int else 0  # an exit status a command raised (typer.Exit)

@@ -1,4 +1,5 @@
-"""`skewfix batch`: run `fix` over a folder of clips or a clip list (format: `skewfix.batch`)."""
+"""`skewfix batch`: run `fix` over a folder of clips or a clip list (the list's format is in
+`skewfix.batch`'s docstring and the README's "Many clips")."""
 
 from __future__ import annotations
 
@@ -21,24 +22,36 @@ def _seconds(value: float | None) -> str:
     return "" if value is None else f"{value:.1f}"
 
 
-def print_summary(outcomes) -> None:
-    """The end-of-batch table on stdout: clip, status, frames, seconds, message."""
+def shown_output(output: str, out_dir: str) -> str:
+    """An output's path as the table shows it: relative to ``--out`` when inside it."""
+    try:
+        relative = os.path.relpath(output, os.path.abspath(out_dir))
+    except ValueError:  # another drive (Windows)
+        return output
+    return output if relative.startswith(os.pardir) else relative
+
+
+def print_summary(outcomes, out_dir: str = ".") -> None:
+    """The end-of-batch table on stdout: clip, output, status, frames, seconds, message."""
     from rich.console import Console
     from rich.table import Table
 
     table = Table(title=None, show_lines=False)
-    for name, justify in (("clip", "left"), ("status", "left"), ("frames", "right"), ("seconds", "right"),
-                          ("message", "left")):
+    for name, justify in (("clip", "left"), ("output", "left"), ("status", "left"), ("frames", "right"),
+                          ("seconds", "right"), ("message", "left")):
         table.add_column(name, justify=justify, overflow="fold")
     for o in outcomes:
-        table.add_row(o.name, o.status, "" if o.frames is None else str(o.frames), _seconds(o.seconds), o.message)
+        table.add_row(o.name, shown_output(o.output, out_dir), o.status, "" if o.frames is None else str(o.frames),
+                      _seconds(o.seconds), o.message)
     Console(width=max(100, Console().width), highlight=False).print(table)
 
 
 @app.command("batch")
 def batch_command(
     source: str = typer.Argument(..., metavar="FOLDER_OR_LIST",
-                                 help="A folder (every video file in it) or a clip list (see 'skewfix.batch')."),
+                                 help="A folder (every video file in it) or a clip list: a text file with one "
+                                      "clip a line, INPUT [OUTPUT] [setting=value ...], the settings "
+                                      "being fix's options (readout=21.3ms line-order=bottom-up ...)."),
     out: str = typer.Option(..., "--out", "-o", help="Folder for the corrected clips (made if missing)."),
     readout: Optional[str] = typer.Option(None, "--readout", "-r",
                                           help="Readout for clips whose line gives none (as for fix)."),
@@ -73,11 +86,14 @@ def batch_command(
     def announce(outcome):
         if quiet:
             return
-        detail = f"{outcome.frames} frames, {_seconds(outcome.seconds)} s" if outcome.status == "done" else outcome.message
+        detail = (f"{outcome.frames} frames, {_seconds(outcome.seconds)} s -> {shown_output(outcome.output, out)}"
+                  if outcome.status == "done" else outcome.message)
         typer.echo(f"{outcome.status:>7}  {outcome.name}: {detail}", err=True)
+        for note in outcome.notes:  # fix's own notes and warnings, whole
+            typer.echo(f"         note: {note}", err=True)
 
     outcomes = run_batch(source, out, defaults, workers or default_workers(), scheduler, force, announce)
-    print_summary(outcomes)
+    print_summary(outcomes, out)
     failed = sum(o.status == "failed" for o in outcomes)
     if failed:
         fail(f"{failed} of {len(outcomes)} clip(s) failed")

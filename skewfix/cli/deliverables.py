@@ -36,11 +36,12 @@ MAP_NAMES = ("correct_map", "reskew_map")
 # Helpers shared by the commands
 # --------------------------------------------------------------------------
 
-def decoded_frame_at(path: str, fps, index: int):
-    """Decode frames of ``path`` up to ``index`` and return that `DecodedFrame`."""
+def decoded_frame_at(path: str, fps, index: int, frames=None):
+    """Decode frames of ``path`` (of its ``frames`` range, if given) up to ``index`` and return
+    that `DecodedFrame`."""
     from skewfix.decode import open_source
 
-    with open_source(path, fps) as source:
+    with open_source(path, fps, frames) as source:
         for frame in source.frames():
             if frame.index == index:
                 return frame
@@ -213,7 +214,7 @@ class FixDeliverables:
         try:
             if self.maps_dir is not None:
                 for name in MAP_NAMES:
-                    self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force, create_folder=True)
+                    self._maps[name] = StagedSequence(self._map_pattern(name), first, self.force)
             if self._matte_pattern is not None:
                 self._matte = StagedSequence(self._matte_pattern, first, self.force)
             return open_sink(self.input, self.output, info, force=self.force, template=template,

@@ -8,7 +8,8 @@ import typer
 
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
-from skewfix.cli.options import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
+from skewfix.cli.options import (choice, distortion_option, focal_option, frames_option, hfov_option,
+                                 model_and_lens, model_option)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
@@ -33,6 +34,7 @@ def fix_command(
     codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 (default: as the source)."),
     crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16, visually lossless)."),
     preset: Optional[str] = typer.Option(None, "--preset", help="x264/x265 speed preset (default medium)."),
+    frames: Optional[str] = frames_option(),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input (e.g. 24000/1001)."),
     depth: Optional[int] = typer.Option(None, "--depth",
                                         help="8 or 16 bits for PNG/TIFF output (default: as the source; "
@@ -60,6 +62,7 @@ def fix_command(
     are numbered like an input sequence, or from 1 for a video input.
     """
     from skewfix.cli.deliverables import FixDeliverables
+    from skewfix.framerange import parse_frame_range
     from skewfix.pipeline import FixOptions, fix_clip
 
     if line_order is not None:
@@ -73,7 +76,7 @@ def fix_command(
                          reference_line=reference_line, border=border, codec=codec, crf=crf,
                          preset=preset, force=force, fps=parse_rate(fps),
                          interpolation=choice(interpolation, ("cubic", "linear"), "--interpolation"),
-                         model=model, lens=plan.lens)
+                         model=model, lens=plan.lens, frames=parse_frame_range(frames))
     extras = FixDeliverables(input, output, motion=save_motion, motion_csv=save_motion_csv, maps_dir=save_maps,
                              matte=save_matte, report=report, reference_line=reference_line, border=border,
                              force=force, fps=options.fps,
@@ -93,6 +96,12 @@ def fix_command(
     say(f"readout {result.readout * 1e3:.3f} ms ({result.line_order}, {result.readout_origin})")
     for note in result.notes:
         typer.echo(f"note: {note}", err=True)
-    say(f"wrote {result.frames_written} frames to {result.output}")
+    part = ""
+    if options.frames is not None:
+        from skewfix.framerange import first_delivered_number
+
+        first = first_delivered_number(result.info)
+        part = f" (frames {first} to {first + result.frames_written - 1} of {input})"
+    say(f"wrote {result.frames_written} frames to {result.output}{part}")
     for line in written:
         say(f"wrote {line}")

@@ -13,10 +13,12 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.options import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
+from skewfix.cli.options import (choice, distortion_option, focal_option, frames_option, hfov_option,
+                                 model_and_lens, model_option)
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
+from skewfix.framerange import first_delivered_number, parse_frame_range
 from skewfix.rowclock import clip_frame_interval, parse_duration, parse_rate
 
 METHODS = ("auto", "flicker", "pan", "motion")
@@ -104,14 +106,14 @@ def write_json(path: Path, data: dict) -> None:
     write_whole(path, json.dumps(_finite_or_none(data), indent=2, allow_nan=False) + "\n")
 
 
-def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress):
+def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress, frames=None):
     """Row profiles frame by frame (never the frames themselves), then the joint flicker fit."""
     from skewfix.decode import open_source
     from skewfix.measure.flicker import measure_flicker, row_profiles_from_luma
     from skewfix.pipeline import black_levels, expected_frames
 
     profiles, times = [], []
-    with open_source(clip, fps) as source:
+    with open_source(clip, fps, frames) as source:
         info = source.info
         black = black_levels(info, 1)[0]
         total = expected_frames(info)
@@ -142,11 +144,11 @@ class _Measurer:
     the footage is measured again at that readout, as ``fix --readout auto`` does.
     """
 
-    def __init__(self, clip, fps, light_hz, exposure_s, progress, model="auto", lens=None):
+    def __init__(self, clip, fps, light_hz, exposure_s, progress, model="auto", lens=None, frames=None):
         from skewfix.models.choice import LensSpec
 
         self.clip, self.fps, self.light_hz, self.exposure_s = clip, fps, light_hz, exposure_s
-        self.progress = progress
+        self.progress, self.frames = progress, frames
         self.model, self.lens = model, lens or LensSpec()
         self.analysis = None
         self.info = None
@@ -156,14 +158,14 @@ class _Measurer:
         if self.analysis is None:
             from skewfix.pipeline import analyse
 
-            self.analysis = analyse(self.clip, self.fps, progress=self.progress)
+            self.analysis = analyse(self.clip, self.fps, progress=self.progress, frames=self.frames)
             self.info = self.analysis.info
         return self.analysis
 
     def run(self, method: str):
         if method == "flicker":
             estimate, self.info = run_flicker(self.clip, self.light_hz, self.exposure_s, self.fps,
-                                              self.progress)
+                                              self.progress, self.frames)
             return estimate
         if method == "pan":
             from skewfix.measure.pan import measure_pan
@@ -248,6 +250,7 @@ def measure_command(
                                            help="Shutter time of the clip (1/1000, 1ms), to explain "
                                                 "weak flicker bands."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    frames: Optional[str] = frames_option(),
     save_motion: Optional[str] = typer.Option(None, "--save-motion",
                                               help="Also solve the clip's motion with the measured readout "
                                                    "and write it (JSON motion file)."),
@@ -297,7 +300,8 @@ def measure_command(
     refused: list[tuple[str, str]] = []
     estimate = None
     with TerminalProgress(quiet) as progress:
-        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress, model, lens)
+        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress, model, lens,
+                             parse_frame_range(frames))
         for name in order:
             try:
                 estimate = measurer.run(name)
@@ -309,6 +313,9 @@ def measure_command(
     if estimate is None:
         raise MeasurementRefused("no method could measure this clip: "
                                  + "; ".join(f"{name}: {why}" for name, why in refused))
+    if measurer.frames is not None:  # --frames: the frames used in the clip's numbering, not the part's
+        first = first_delivered_number(measurer.info)
+        estimate.frames_used = [first + int(k) for k in estimate.frames_used]
 
     if quiet:
         typer.echo(f"readout {estimate.readout_s * 1e3:.3f} ms ± {estimate.uncertainty_s * 1e3:.3f} ms "

@@ -52,3 +52,12 @@ def model_and_lens(model: str, hfov: Optional[str], focal_length: Optional[str],
     if hfov is None and focal_length is None and distortion is None:
         return model, None
     return model, parse_lens(hfov, focal_length, distortion)
+
+
+FRAMES_HELP = ("Use only these frames, both included: FIRST-LAST as frame numbers (a video's first "
+               "frame is 1, a sequence's frames are its file numbers) or as timecodes at the clip's "
+               "rate (00:00:04:00-00:00:16:00); 120- runs to the end.")
+
+
+def frames_option():
+    return typer.Option(None, "--frames", metavar="FIRST-LAST", help=FRAMES_HELP)

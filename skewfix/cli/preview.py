@@ -1,4 +1,9 @@
-"""`skewfix preview`: one before/after still, rendering only that frame."""
+"""`skewfix preview`: one still of one frame as shot and corrected, rendering only that frame.
+
+With several readouts (``--readout 12ms,16ms,20ms``) the still shows the frame
+as shot and then one correction per readout, each labelled with it, so a
+readout can be chosen by eye when the clip cannot measure it.
+"""
 
 from __future__ import annotations
 
@@ -8,23 +13,43 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, frame_index, solve_with_model, still_png
-from skewfix.cli.options import choice, distortion_option, focal_option, hfov_option, model_and_lens, model_option
+from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, solve_with_model
+from skewfix.cli.options import (choice, distortion_option, focal_option, frames_option, hfov_option,
+                                 model_and_lens, model_option)
 from skewfix.cli.progress import TerminalProgress
-from skewfix.errors import UsageProblem
+from skewfix.errors import InputError, UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
-from skewfix.sequence import first_frame_number, planes_to_rgb
+from skewfix.sequence import planes_to_rgb
+
+MAX_CANDIDATES = 8  # readouts in one still (each panel gets narrower)
+
+
+def candidate_readouts(text: str) -> list[str]:
+    """``--readout`` split at commas: one readout, or the candidates to compare."""
+    parts = [part.strip() for part in text.split(",")]
+    if not all(parts):
+        raise UsageProblem(f"--readout {text!r}: give one readout, or candidates separated by commas "
+                           "(12ms,16ms,20ms)")
+    if len(parts) > MAX_CANDIDATES:
+        raise UsageProblem(f"--readout: at most {MAX_CANDIDATES} candidates in one still, not {len(parts)}")
+    if len(set(parts)) != len(parts):
+        raise UsageProblem(f"--readout {text!r}: a candidate is given twice")
+    return parts
 
 
 @app.command("preview")
 def preview_command(
     clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
     readout: str = typer.Option(..., "--readout", "-r", help="Readout time (18.5ms, 0.0185s, 18500us), "
-                                                              "'auto', or a saved camera's name."),
-    frame: Optional[int] = typer.Option(None, "--frame", "-n", help="Frame to show, by its number: a sequence's "
-                                                                     "file number, a video's counted from 1 "
-                                                                     "(default: the first frame)."),
-    out: str = typer.Option(..., "--out", "-o", help="PNG file for the before/after still."),
+                                                              "'auto', or a saved camera's name; several, "
+                                                              "separated by commas (12ms,16ms,20ms), to "
+                                                              "compare them side by side."),
+    frame: Optional[str] = typer.Option(None, "--frame", "-n",
+                                        help="Frame to show: its number (a video's first frame is 1, a "
+                                             "sequence's frames are its file numbers) or its timecode; "
+                                             "default: the first frame used."),
+    out: str = typer.Option(..., "--out", "-o", help="PNG file for the still."),
+    frames: Optional[str] = frames_option(),
     line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
     reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
     border: str = typer.Option("edge", "--border", help="edge, black or crop."),
@@ -36,12 +61,15 @@ def preview_command(
     focal_length: Optional[str] = focal_option(),
     lens_distortion: Optional[str] = distortion_option(),
 ):
-    """Write a before/after still of one frame, with straight reference lines over both halves."""
+    """Write a still of one frame as shot and corrected (or corrected with each of several
+    readouts), with straight reference lines over every panel."""
     from skewfix.cameras import plan_readout
-    from skewfix.rowclock import parse_rate
     from skewfix.files import write_whole
+    from skewfix.framerange import delivered_position, first_delivered_number, parse_frame, parse_frame_range
     from skewfix.motionfile import check_new_file
     from skewfix.pipeline import FrameWarper, RenderSettings, analyse
+    from skewfix.preview import png_bytes, side_by_side
+    from skewfix.rowclock import parse_rate
     from skewfix.warp import BORDERS
 
     if line_order is not None:
@@ -50,24 +78,39 @@ def preview_command(
     choice(border, BORDERS, "--border")
     if Path(out).suffix.lower() != ".png":
         raise UsageProblem(f"--out {out}: the still is written as PNG; give a .png name")
+    frame = parse_frame(frame)
+    selection = parse_frame_range(frames)
     check_new_file(out, force, "--out")
     check_distinct_outputs(clip, {"--out": out})
     rate = parse_rate(fps)
     request, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
-    plan = plan_readout(readout, line_order, lens)
+    candidates = candidate_readouts(readout)
+    plans = [plan_readout(text, line_order, lens) for text in candidates]
     with TerminalProgress(quiet) as progress:
-        analysis = analyse(clip, rate, progress=progress)
-    index = frame_index(clip, analysis.info, analysis.n_frames, frame)
-    clock, solved = solve_with_model(analysis, plan, request)
-    warper = FrameWarper(solved, clock, RenderSettings(reference_line, border), analysis.info)
-    before = decoded_frame_at(clip, rate, index)
-    after, _ = warper.apply(index, before.planes, before.subsampling)
+        analysis = analyse(clip, rate, progress=progress, frames=selection)
     info = analysis.info
-    png = still_png(planes_to_rgb(before.planes, before.pix_fmt, info, 8),
-                    planes_to_rgb(after, before.pix_fmt, info, 8))
-    write_whole(out, png)
-    typer.echo(f"note: motion model: {solved.kind.summary()}"
-               + (f" ({solved.model_reason})" if solved.model_reason else ""), err=True)
+    first = first_delivered_number(info)
+    index = 0 if frame is None else delivered_position(frame, info)
+    if not 0 <= index < analysis.n_frames:
+        used = f"{first} to {first + analysis.n_frames - 1}"
+        raise InputError(f"{clip}: {'--frames ' + selection.text + ' uses' if selection else 'has'} "
+                         f"{analysis.n_frames} frames ({used}); there is no frame {frame} among them")
+    before = decoded_frame_at(clip, rate, index, selection)
+    panels = [planes_to_rgb(before.planes, before.pix_fmt, info, 8)]
+    labels, said = ["as shot"], []
+    for text, plan in zip(candidates, plans):
+        clock, solved = solve_with_model(analysis, plan, request)
+        warper = FrameWarper(solved, clock, RenderSettings(reference_line, border), info)
+        after, _ = warper.apply(index, before.planes, before.subsampling)
+        panels.append(planes_to_rgb(after, before.pix_fmt, info, 8))
+        ms = f"{round(clock.readout * 1e3, 3):g} ms"
+        labels.append("corrected" if len(candidates) == 1 else f"readout {ms}")
+        said.append((ms, clock.line_order, solved))
+    write_whole(out, png_bytes(side_by_side(panels, labels)))
+    for ms, _, solved in said:
+        lead = "" if len(said) == 1 else f"readout {ms}: "
+        typer.echo(f"note: {lead}motion model: {solved.kind.summary()}"
+                   + (f" ({solved.model_reason})" if solved.model_reason else ""), err=True)
     if not quiet:
-        typer.echo(f"wrote {out} (frame {index + first_frame_number(info)}, readout {clock.readout * 1e3:.3f} ms, {clock.line_order})",
-                   err=True)
+        shown = ", ".join(f"{ms}" for ms, _, _ in said)
+        typer.echo(f"wrote {out} (frame {first + index}, readout {shown}, {said[0][1]})", err=True)

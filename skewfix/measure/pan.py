@@ -285,7 +285,7 @@ def _speed_band_shifts(path: str, analysis, fps):
 
     slants, stderrs, mid_shifts = {}, {}, {}
     prev_mid = None
-    with open_source(path, fps) as source:
+    with open_source(path, fps, analysis.frames) as source:
         for frame in source.frames():
             k = frame.index
             if k >= analysis.n_frames:

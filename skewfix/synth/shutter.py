@@ -36,10 +36,10 @@ class ShutterRenderer:
         x, y, th, sg = self.path.curves(times_per_row)
         cx, cy = (self.width - 1) / 2.0, (self.height - 1) / 2.0
         vx, vy = self.xs - cx, self.ys - cy
-        k = np.exp(-sg)[:, None]
+        shrink = np.exp(-sg)[:, None]  # the inverse zoom: image offsets to world offsets
         c, s = np.cos(th)[:, None], np.sin(th)[:, None]
-        qx = x[:, None] + k * (c * vx + s * vy) + self.origin[0]
-        qy = y[:, None] + k * (-s * vx + c * vy) + self.origin[1]
+        qx = x[:, None] + shrink * (c * vx + s * vy) + self.origin[0]
+        qy = y[:, None] + shrink * (-s * vx + c * vy) + self.origin[1]
         return cv2.remap(
             self.scene, qx.astype(np.float32), qy.astype(np.float32), cv2.INTER_CUBIC, borderMode=cv2.BORDER_REFLECT_101
         )
