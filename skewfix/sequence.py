@@ -412,8 +412,6 @@ def _planar_yuv(pix_fmt: str, planes) -> bool:
 
 
 def _yuv_planes_to_unit(planes, pix_fmt: str, info: VideoInfo, src_bits: int) -> np.ndarray:
-    from skewfix.pipeline import black_levels
-
     full = black_levels(replace(info, pix_fmt=pix_fmt, bit_depth=src_bits, is_rgb=False), 1)[0] == 0.0
     return yuv_to_rgb(planes[0], planes[1], planes[2], src_bits, full, _luma_weights(info.color))
 
