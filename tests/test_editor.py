@@ -75,14 +75,15 @@ def audio_packets(path):
         return [(float(p.pts * p.time_base), bytes(p)) for p in c.demux(stream) if p.size]
 
 
-@pytest.mark.parametrize("frames", ["3-10", "00:00:00:03-00:00:00:10"], ids=["numbers", "timecodes"])
+@pytest.mark.parametrize("frames", ["4-11", "00:00:00:03-00:00:00:10"], ids=["numbers", "timecodes"])
 def test_fix_frames_writes_exactly_that_part_with_its_sound(lossless_with_sound, tmp_path, capsys, frames):
     # A global shutter (readout 0) has nothing to correct (fact of the trade) and FFV1 is
-    # lossless, so the output must be the source's frames 3 to 10, both included, bit for bit
+    # lossless, so the output must be the source's frames 4 to 11 (README: a video's frames are
+    # numbered from 1; timecode 00:00:00:03 is frame 4), both included, bit for bit
     out = tmp_path / "new" / "part.mkv"  # its folder does not exist yet
     code, err = run(capsys, "fix", lossless_with_sound, out, "--readout", "0", "--frames", frames)
     assert code == 0, err
-    assert "8 frames" in err and "frames 3 to 10" in err
+    assert "8 frames" in err and "frames 4 to 11" in err
     source, part = decode_rgb(lossless_with_sound), decode_rgb(out)
     assert len(part) == 8
     assert all(np.array_equal(a, b) for a, b in zip(part, source[3:11]))
@@ -97,8 +98,8 @@ def test_fix_frames_writes_exactly_that_part_with_its_sound(lossless_with_sound,
 
 
 def test_fix_frames_refuses_frames_the_clip_does_not_have(lossless_with_sound, tmp_path, capsys):
-    code, err = run(capsys, "fix", lossless_with_sound, tmp_path / "o.mkv", "--readout", "0", "--frames", "10-16")
-    assert code == 1 and "has 16 frames (0 to 15)" in err and "up to 16" in err
+    code, err = run(capsys, "fix", lossless_with_sound, tmp_path / "o.mkv", "--readout", "0", "--frames", "11-17")
+    assert code == 1 and "has 16 frames (1 to 16)" in err and "up to 17" in err
     assert list(tmp_path.iterdir()) == []
 
 
@@ -166,7 +167,7 @@ def test_a_camera_mov_keeps_its_timecode_track_and_a_part_starts_later(tmp_path,
             return {s.type: s.metadata.get("timecode") for s in c.streams}
 
     assert timecodes(path) == {"video": "01:00:00:00", "data": "01:00:00:00"}
-    for frames, name, expected in ((None, "whole.mov", "01:00:00:00"), ("3-8", "part.mov", "01:00:00:03")):
+    for frames, name, expected in ((None, "whole.mov", "01:00:00:00"), ("4-9", "part.mov", "01:00:00:03")):
         code, err = run(capsys, "fix", path, tmp_path / name, "--readout", "0", "--quiet",
                         *(("--frames", frames) if frames else ()))
         assert code == 0, err
@@ -182,13 +183,13 @@ def test_preview_candidates_side_by_side_the_right_one_is_closest_to_the_truth(t
     clip = truth_clip("whip", readout, n_frames=16)  # rendered by tests/truth.py
     path, renderer = clip.path, clip.clip
     still = tmp_path / "looks" / "candidates.png"
-    code, err = run(capsys, "preview", path, "--readout", "16ms,24ms,32ms", "--frame", k, "--frames", "2-14",
+    code, err = run(capsys, "preview", path, "--readout", "16ms,24ms,32ms", "--frame", k + 1, "--frames", "2-14",
                     "--out", still, "--quiet")
     assert code == 0, err
     panel = cv2.cvtColor(cv2.imread(str(still)), cv2.COLOR_BGR2RGB)
     w, h = renderer.width, renderer.height
     assert panel.shape == (h + 36, 4 * w + 3 * 8, 3)  # as shot and three candidates, 8 px apart
-    truth = clip.global_view(k)
+    truth = clip.global_view(k)  # frame number k + 1 is position k (README: video frames from 1)
     inner = (slice(h // 6, -h // 6), slice(w // 6, -w // 6))  # away from the filled edges
 
     def psnr(i):  # scikit-image's PSNR of panel i against the global-shutter truth
