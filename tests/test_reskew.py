@@ -1,7 +1,8 @@
 """Putting the skew back, warp maps and mattes: the round trips a compositor relies on.
 
 The plate is a whip pan across scikit-image's bundled photographs rendered row by
-row with a known rolling shutter (`skewfix.synth`), written losslessly as PNG, so
+row with a known rolling shutter by tests/truth.py (the published row-time formula,
+nothing imported from skewfix), written losslessly as PNG, so
 every difference measured here comes from the correction, not from a codec.
 """
 
@@ -18,19 +19,18 @@ import tifffile
 from scipy import ndimage
 from skimage.metrics import peak_signal_noise_ratio
 
+import truth
 from conftest import run_cli, write_sequence
 from skewfix.cli import main
 from skewfix.decode import VideoInfo
 from skewfix.motion import MotionModel, MotionSegment, bspline_basis
 from skewfix.motionfile import load_motion, save_motion
 from skewfix.rowclock import RowClock, frame_times_from_rate
-from skewfix.synth.paths import WhipPan
-from skewfix.synth.shutter import ShutterRenderer, to_uint8
 
 W, H, N = 320, 180, 10
 RATE = Fraction(25)
 READOUT = 0.030  # 75 % of the 40 ms frame interval
-CAMERA = WhipPan(peak_px_s=1500.0, centre_s=0.2, duration_s=0.5, tilt_px_s=10.0)
+CAMERA = truth.whip_pan(60.0, fps=RATE, centre_s=0.2, duration_s=0.5, angle_deg=0.4)  # 1500 px/s at its peak
 CENTRAL = 0.70
 
 
@@ -55,7 +55,10 @@ def read(path) -> np.ndarray:
 
 
 def true_motion(clock: RowClock) -> MotionModel:
-    """The camera path as the motion model's B-spline (least squares on dense samples)."""
+    """The truth's camera path as the motion model's B-spline (least squares on dense samples).
+
+    tests/truth.py renders a view in which the world point at image point p at time t is
+    p + pan(t) (its ``_sample``); the similarity model's pan_x and pan_y are that offset."""
     interval = 1 / float(RATE)
     spacing, t0 = interval / 8, -interval
     n_coef = int(np.ceil((clock.frame_times[-1] + 2 * interval - t0) / spacing)) + 3
@@ -64,21 +67,23 @@ def true_motion(clock: RowClock) -> MotionModel:
     basis = np.zeros((len(t), n_coef))
     np.put_along_axis(basis, idx, weights, axis=1)
     coef = np.zeros((4, n_coef))
-    for i, curve in enumerate(CAMERA.curves(t)[:2]):
-        coef[i] = np.linalg.lstsq(basis, curve, rcond=None)[0]
+    for i, curve in enumerate(CAMERA(t)):
+        coef[i] = np.linalg.lstsq(basis, np.broadcast_to(curve, t.shape), rcond=None)[0]
     return MotionModel(W, H, [MotionSegment(0, N - 1, t0, spacing, coef)])
 
 
 @pytest.fixture(scope="module")
-def plate(tmp_path_factory, panorama):
-    """Rolling-shutter plate, exact global-shutter views, fix (with maps, matte, motion) and reskew."""
+def plate(tmp_path_factory):
+    """Rolling-shutter plate and exact global-shutter views rendered by tests/truth.py (the
+    published row-time formula, nothing imported from skewfix), fix (with maps, matte,
+    motion) and reskew."""
     folder = tmp_path_factory.mktemp("plate")
+    clip = truth.render_planar_clip(W, H, N, RATE, READOUT, CAMERA, noise=0.75, seed=2)
     clock = RowClock(frame_times_from_rate(N, RATE), H, READOUT, "top-down")
-    renderer = ShutterRenderer(panorama, W, H, CAMERA, origin=(W * 0.3, H * 0.25))
+    rolling = list(clip.frames)
     rng = np.random.default_rng(2)
-    rolling = [to_uint8(renderer.rolling(clock, k), 0.003, rng) for k in range(N)]
-    views = [to_uint8(renderer.global_view(float(clock.reference_time(k, "middle"))), 0.003, rng)
-             for k in range(N)]
+    views = [np.clip(np.rint(clip.global_view(float(clip.reference_time(k, (H - 1) / 2.0)))
+                             + 0.75 * rng.standard_normal((H, W, 3))), 0, 255).astype(np.uint8) for k in range(N)]
     write_sequence(folder, "rs.{:04d}.png", rolling)
     write_sequence(folder, "gs.{:04d}.png", views)
     argv = ["fix", folder / "rs.%04d.png", folder / "fixed.%04d.png", "--fps", "25", "--readout", "30ms",
@@ -195,14 +200,16 @@ def test_motion_saved_by_fix_matches_the_camera(plate):
     # Physics: a pan at v px/s leans verticals by v * readout * (H-1) / H px between the top
     # and bottom rows (the row clock, skewfix/rowclock.py); the camera's true speed is known.
     folder, _, _, clock = plate
-    model, clock2, reference_line, meta = load_motion(folder / "m.json")
+    _, clock2, reference_line, meta = load_motion(folder / "m.json")
     assert meta["frame_rate"] == RATE and meta["frame_count"] == N and meta["first_number"] == 1
     assert clock2.readout == pytest.approx(READOUT) and reference_line == "middle"
     rows = list(csv.DictReader((folder / "m.csv").open()))
     assert len(rows) == N
     for k, row in enumerate(rows):
         t_ref = float(clock.reference_time(k, "middle"))
-        lean_true = -float(CAMERA.speed(np.array([t_ref]))[0]) * READOUT * (H - 1) / H
+        dt = 1e-4  # the truth path's horizontal speed, by a central difference
+        speed = (float(CAMERA(t_ref + dt)[0]) - float(CAMERA(t_ref - dt)[0])) / (2 * dt)
+        lean_true = -speed * READOUT * (H - 1) / H
         assert float(row["skew_x_px"]) == pytest.approx(lean_true, rel=0.15, abs=1.5), k
 
 
