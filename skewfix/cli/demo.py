@@ -9,6 +9,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.progress import TerminalProgress
+from skewfix.framerange import VIDEO_FIRST_NUMBER
 
 DEMO_READOUT = 0.0185
 DEMO_RATE = Fraction(25)
@@ -54,8 +55,8 @@ def demo_command(
         render_demo_clip(clip)
     with TerminalProgress(quiet) as progress:
         result = fix_clip(str(clip), str(fixed), FixOptions(readout=DEMO_READOUT, force=True), progress)
-    k = 25  # the fastest moment of the pan
+    k = 25  # position of the fastest moment of the pan (counted from 0; shown as a frame number)
     before_after(read_frame_rgb(str(clip), k), read_frame_rgb(str(fixed), k), str(still))
     typer.echo(f"demo clip (as shot):   {clip}")
     typer.echo(f"corrected clip:        {fixed}  ({result.frames_written} frames, readout {DEMO_READOUT * 1e3:.1f} ms)")
-    typer.echo(f"before/after still:    {still}  (frame {k}; the masts lean on the left, stand straight on the right)")
+    typer.echo(f"before/after still:    {still}  (frame {k + VIDEO_FIRST_NUMBER}; the masts lean on the left, stand straight on the right)")

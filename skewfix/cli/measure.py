@@ -313,9 +313,9 @@ def measure_command(
     if estimate is None:
         raise MeasurementRefused("no method could measure this clip: "
                                  + "; ".join(f"{name}: {why}" for name, why in refused))
-    if measurer.frames is not None:  # --frames: the frames used in the clip's numbering, not the part's
-        first = first_delivered_number(measurer.info)
-        estimate.frames_used = [first + int(k) for k in estimate.frames_used]
+    # the frames used, in the clip's numbering (README: frame numbers), not as positions in the part read
+    first = first_delivered_number(measurer.info)
+    estimate.frames_used = [first + int(k) for k in estimate.frames_used]
 
     if quiet:
         typer.echo(f"readout {estimate.readout_s * 1e3:.3f} ms ± {estimate.uncertainty_s * 1e3:.3f} ms "
