@@ -159,8 +159,8 @@ def pan_720p25_bottom_up_from_rest(workdir):
 
 
 def _motion_case(workdir, name, camera, rate, readout, order, n_frames=48, width=960, height=540, target_pct=5.0):
-    """Self-calibration from the clip's own motion (skewfix.measure.selfcal)."""
-    from skewfix.measure.selfcal import measure_motion
+    """Self-calibration from the clip's own motion (skewfix.measure.motion_fit)."""
+    from skewfix.measure.motion_fit import measure_motion
     from skewfix.pipeline import analyse
     from skewfix.synth.scenes import photo_panorama
     from skewfix.synth.shutter import render_clip
@@ -207,7 +207,7 @@ def motion_global_shutter(workdir):
 
 def fix_auto_whip_pan(workdir):
     """`fix --readout auto` on a whip pan: the accuracy benchmark's residual metric (target <= 0.45 px)."""
-    from skewfix.measure.selfcal import auto_readout_resolver
+    from skewfix.measure.motion_fit import auto_readout_resolver
     from skewfix.pipeline import FixOptions, fix_clip
     from skewfix.synth.paths import WhipPan
     from skewfix.synth.residual import clip_residual, decode_rgb

@@ -84,13 +84,13 @@ def test_pan_measure_writes_json_plot_and_camera(clips, tmp_path, capsys, config
 def motion_refuses(monkeypatch):
     """Stand-in for the motion method that refuses, as it must on a constant-velocity
     pan (the real method is tested in its own file)."""
-    fake = types.ModuleType("skewfix.measure.selfcal")
+    fake = types.ModuleType("skewfix.measure.motion_fit")
 
     def measure_motion(analysis, line_order=None, kind=None):
         raise MeasurementRefused("the motion is too steady to reveal the readout")
 
     fake.measure_motion = measure_motion
-    monkeypatch.setitem(sys.modules, "skewfix.measure.selfcal", fake)
+    monkeypatch.setitem(sys.modules, "skewfix.measure.motion_fit", fake)
 
 
 def test_auto_falls_back_to_pan_and_says_why(clips, tmp_path, capsys, motion_refuses):

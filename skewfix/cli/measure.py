@@ -173,7 +173,7 @@ class _Measurer:
 
     def _run_motion(self):
         from skewfix.measure.result import ModelUsed
-        from skewfix.measure.selfcal import measure_motion
+        from skewfix.measure.motion_fit import measure_motion
         from skewfix.pipeline import choose_with_readout
 
         found = {}

@@ -5,7 +5,7 @@ from fractions import Fraction
 import pytest
 
 from skewfix.errors import MeasurementRefused
-from skewfix.measure.selfcal import measure_motion
+from skewfix.measure.motion_fit import measure_motion
 from skewfix.pipeline import analyse
 from skewfix.synth.paths import SteadyPan, Still, WhipPan
 from skewfix.synth.shutter import render_clip
