@@ -423,7 +423,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
 # ----------------------------------------------------------------------------
 # plot
 # ----------------------------------------------------------------------------
-def plot_pan(estimate: ReadoutEstimate, path) -> None:
+def plot_pan(estimate: ReadoutEstimate, path, refused: str | None = None) -> None:
     """PNG to check a pan measurement by eye: lean against speed with the fitted line,
     and the misfit against candidate readouts with the minimum marked."""
     from skewfix.measure.plots import draw_residual_curve, new_figure, save_png
@@ -446,6 +446,8 @@ def plot_pan(estimate: ReadoutEstimate, path) -> None:
     ax.set_ylabel("lean (px per row)")
     ax.legend(loc="best", fontsize=8)
     draw_residual_curve(axes[1], estimate)
-    fig.suptitle(f"pan: readout {estimate.readout_s * 1e3:.3f} ± {estimate.uncertainty_s * 1e3:.3f} ms, "
-                 f"{estimate.line_order}, {len(estimate.frames_used)} frames", fontsize=12)
+    from skewfix.measure.plots import mark_refused, title_for
+
+    fig.suptitle(title_for(estimate, refused), fontsize=12)
+    mark_refused(fig, refused)
     save_png(fig, path)

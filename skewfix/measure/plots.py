@@ -101,3 +101,12 @@ def mark_refused(fig, refused: str | None) -> None:
              rotation=20, weight="bold")
     fig.text(0.01, 0.005, "\n".join(textwrap.wrap("refused: " + refused, 150)), fontsize=7, color="C3",
              ha="left", va="bottom")
+
+
+def plot_refusal(reason: str, path) -> None:
+    """A PNG for a refusal with nothing to draw (no bands, no tracks): the reason, marked."""
+    fig, ax = new_figure(1, (9, 4.5))
+    ax.axis("off")
+    ax.set_title("measurement refused", loc="left")
+    mark_refused(fig, reason)
+    save_png(fig, path)
