@@ -1,4 +1,4 @@
-"""Self-calibration of the readout from a clip's own motion."""
+"""The motion method: the readout from a clip's own motion."""
 
 from fractions import Fraction
 
@@ -7,7 +7,7 @@ import pytest
 from skewfix.errors import MeasurementRefused
 from skewfix.measure.motion_fit import measure_motion
 from skewfix.pipeline import analyse
-from skewfix.synth.paths import SteadyPan, Still, WhipPan
+from skewfix.synth.paths import SteadyPan, Still, WhipPan  # noqa: F401
 from skewfix.synth.shutter import render_clip
 
 W, H = 480, 270
@@ -56,3 +56,75 @@ def test_measure_saves_the_solved_motion(tmp_path, panorama):
     model, clock, reference_line, meta = load_motion(motion)
     assert clock.readout == pytest.approx(0.020, rel=0.05)
     assert len(clock.frame_times) == 24 and reference_line == "middle"
+
+
+def test_lk_measures_the_displacement_at_its_window_gradient_centroid():
+    # OpenCV's pyramidal Lucas-Kanade (Lucas & Kanade, 1981) as the reference: a picture whose
+    # rows shift by a different amount each (a change of lean between frames, as a rolling
+    # shutter makes while the speed changes) is tracked at a point whose window holds vertical
+    # edges only in its upper rows; the displacement found is the one at the window's
+    # gradient centroid (rows_at_evidence), not at the point
+    import cv2
+    import numpy as np
+
+    from skewfix.measure.motion_fit import _window_centroid_offsets
+
+    h, w, y0, x0 = 120, 160, 60.0, 80.0
+    rng = np.random.default_rng(4)
+    cols = np.repeat(rng.uniform(40, 215, w // 4), 4)
+    img = np.tile(cols, (h, 1)).astype(np.float32)
+    img[int(y0):] = 128.0  # no detail from the point's row down
+    img = cv2.GaussianBlur(img, (0, 0), 1.2)
+    d0, lean = 2.0, 0.05  # px, and px per row
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    moved = cv2.remap(img, xx - (d0 + lean * (yy - y0)), yy, cv2.INTER_CUBIC, borderMode=cv2.BORDER_REFLECT)
+    a, b = img.astype(np.uint8), moved.astype(np.uint8)
+    pt = np.array([[x0, y0]], np.float32)
+    found, st, _ = cv2.calcOpticalFlowPyrLK(a, b, pt, None, winSize=(15, 15), maxLevel=0,
+                                            criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 50, 1e-4))
+    assert st[0, 0] == 1
+    measured = float(found[0, 0] - x0)
+    offset = float(_window_centroid_offsets(a, pt.astype(np.float64), np.array([1.0, 0.0]), 15)[0])
+    assert -6 < offset < -2  # the edges are above the point
+    assert measured == pytest.approx(d0 + lean * offset, abs=0.03)
+    assert abs(measured - d0) > 0.1  # the point's own row would be wrong
+
+
+def test_line_order_note_catches_the_wrong_order(tmp_path, panorama):
+    from skewfix.measure.motion_fit import line_order_note
+    from skewfix.rowclock import RowClock
+
+    analysis = clip(tmp_path, panorama, whip(25), 0.020, "top-down")
+    right = RowClock(analysis.frame_times, H, 0.020, "top-down")
+    wrong = RowClock(analysis.frame_times, H, 0.020, "bottom-up")
+    assert line_order_note(analysis.pairs, right, W) is None
+    note = line_order_note(analysis.pairs, wrong, W)
+    assert note and "--line-order top-down" in note and "\n" not in note
+
+
+def test_line_order_note_is_silent_when_the_motion_cannot_tell(tmp_path, panorama):
+    # constant velocity leans every frame alike, whatever the order (common practice)
+    from skewfix.measure.motion_fit import line_order_note
+    from skewfix.rowclock import RowClock
+
+    analysis = clip(tmp_path, panorama, SteadyPan(vx_px_s=900.0), 0.020)
+    for order in ("top-down", "bottom-up"):
+        assert line_order_note(analysis.pairs, RowClock(analysis.frame_times, H, 0.020, order), W) is None
+
+
+def test_the_plot_marks_the_result_at_the_lowest_point(tmp_path, panorama):
+    import numpy as np
+
+    from skewfix.measure.plots import plot_residual_curve
+
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020))
+    d = est.diagnostics
+    cand, res = np.asarray(d["candidates_ms"]), np.asarray(d["residuals"])
+    # the result is a parabola's vertex; the sampled candidates on either side of it fit worse
+    others = np.abs(cand - d["signed_best_ms"]) > 1e-9
+    nearest = np.argsort(np.abs(cand[others] - d["signed_best_ms"]))[:2]
+    assert np.all(res[others][nearest] > res[~others].min())
+    assert abs(cand[others][np.argmin(res[others])] - d["signed_best_ms"]) <= d["finest_step_ms"] + 1e-9
+    out = tmp_path / "motion.png"
+    plot_residual_curve(est, out)
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)

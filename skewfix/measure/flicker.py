@@ -372,20 +372,30 @@ def frequency_evidence(z, t, sigma_z2, centred, candidates_hz):
     duration = float(np.ptp(tt)) if n > 1 else 0.0
     if n < 3 or duration <= 0:
         return {f: 0.0 for f in candidates_hz}, 0.0, 0.0
+    from scipy.optimize import minimize_scalar
+
     fps = (n - 1) / duration
     step = 1.0 / (20.0 * duration)
-    free = np.arange(-fps / 2, fps / 2 + step, step)
-    misfit_free = _drift_misfit(z, tt, free, centred)
-    i = int(np.argmin(misfit_free))
-    best_nu, best = float(free[i]), float(misfit_free[i])
+
+    def lowest(grid):
+        """The least misfit over a grid of drifts, refined between its neighbours (Brent)."""
+        m = _drift_misfit(z, tt, grid, centred)
+        i = int(np.argmin(m))
+        lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+        if hi - lo <= 0:
+            return float(grid[i]), float(m[i])
+        sol = minimize_scalar(lambda nu: float(_drift_misfit(z, tt, [nu], centred)[0]), bounds=(lo, hi),
+                              method="bounded", options={"xatol": 1e-6 * step})
+        return (float(sol.x), float(sol.fun)) if sol.fun < m[i] else (float(grid[i]), float(m[i]))
+
+    best_nu, best = lowest(np.arange(-fps / 2, fps / 2 + step, step))
     dof = max(2 * n - 3, 1)
     scale = max(1.0, best / (dof * sigma_z2)) if sigma_z2 > 0 else 1.0
     unit = sigma_z2 * scale if sigma_z2 > 0 else max(best / dof, 1e-300)
     out = {}
     for f in candidates_hz:
         grid = np.arange(f * (1 - _LIGHT_TOL), f * (1 + _LIGHT_TOL) + step, step)
-        m = min(float(np.min(_drift_misfit(z, tt, grid, centred))),
-                float(np.min(_drift_misfit(z, tt, -grid, centred))))
+        m = min(lowest(grid)[1], lowest(-grid[::-1])[1])
         out[f] = max(m - best, 0.0) / unit
     still = float(_drift_misfit(z, tt, [0.0], centred)[0]) if not centred else best
     return out, best_nu, max(still - best, 0.0) / unit
