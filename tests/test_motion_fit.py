@@ -117,7 +117,11 @@ def test_the_plot_marks_the_result_at_the_lowest_point(tmp_path, panorama):
 
     from skewfix.measure.plots import plot_residual_curve
 
-    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020))
+    seen = []
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020), progress=lambda *a: seen.append(a))
+    # the search reports its progress too, fit by fit, up to its announced total
+    search = [a for a in seen if "search" in a[0]]
+    assert search and search[-1][1] == search[-1][2] and len(search) == search[-1][2]
     d = est.diagnostics
     cand, res = np.asarray(d["candidates_ms"]), np.asarray(d["residuals"])
     # the result is a parabola's vertex; the sampled candidates on either side of it fit worse
@@ -128,3 +132,19 @@ def test_the_plot_marks_the_result_at_the_lowest_point(tmp_path, panorama):
     out = tmp_path / "motion.png"
     plot_residual_curve(est, out)
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)
+
+
+def test_fix_notes_a_wrong_line_order(tmp_path, panorama):
+    # a top-down clip fixed as bottom-up: the rows are timed backwards (the row clock's
+    # definition, skewfix/rowclock.py), so the fix doubles the lean; fix says so in one note
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    path = tmp_path / "whip.mp4"
+    render_clip(path, panorama, whip(25), W, H, Fraction(25), 24, 0.020, origin=(W * 0.8, panorama.shape[0] / 2))
+    notes = {}
+    for order in ("top-down", "bottom-up"):
+        result = fix_clip(str(path), str(tmp_path / f"{order}.mp4"),
+                          FixOptions(readout=0.020, line_order=order, preset="ultrafast"))
+        notes[order] = [n for n in result.notes if "line order looks wrong" in n]
+    assert notes["top-down"] == []
+    assert len(notes["bottom-up"]) == 1 and "--line-order top-down" in notes["bottom-up"][0]

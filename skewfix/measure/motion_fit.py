@@ -241,7 +241,8 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
             readout_s=abs(best), uncertainty_s=uncertainty, line_order=order, method="motion",
             frames_used=used, height=info.height, frame_interval=interval,
             diagnostics={"candidates_ms": cand * 1e3, "residuals": sums, "signed_best_ms": best * 1e3,
-                         "finest_step_ms": finest_step * 1e3},
+                         "finest_step_ms": finest_step * 1e3,
+                         "residual_label": "sum of squared track misfits (px², each at most 3 px)"},
             notes=notes_)
 
     # Relative depth of the minimum: how much worse the readout-blind extremes fit.

@@ -38,10 +38,10 @@ def draw_residual_curve(ax, estimate: ReadoutEstimate, window=None) -> None:
         raise ValueError(f"the {estimate.method} estimate has no residual curve to plot")
     cand = np.asarray(d["candidates_ms"], dtype=np.float64)
     res = np.asarray(d["residuals"], dtype=np.float64)
-    ax.plot(cand, res, color="C0", lw=1.5)
     if window is not None:  # a close look: only the candidates within the window
         keep = np.abs(cand - window[0]) <= window[1]
         cand, res = cand[keep], res[keep]
+    ax.plot(cand, res, color="C0", lw=1.5, marker="." if window is not None else None)
     finite = np.isfinite(res)
     s_ms = estimate.uncertainty_s * 1e3
     # the motion method searches a signed readout (negative: bottom-up); mark the result there
