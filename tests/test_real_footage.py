@@ -18,7 +18,8 @@ What is known for the readout: nobody has published the readout of the cameras
 that shot these clips, so no test can hold a measured value against a truth.
 What can be known is whether the clip's motion could reveal one. In
 ``carphone_pristine.mp4`` the camera rides with the car, whose interior fills
-most of the frame around the speaker: the whole picture moves well under a
+most of the frame around the speaker (seen in frames 0, 60 and 119 when this
+test was written; the window on the right is a small part): the whole picture moves well under a
 pixel per frame (checked below with OpenCV's phase correlation), far too
 little and too steady for any readout to show. `measure --method motion` must
 therefore refuse, in one line naming the clip, rather than guess.

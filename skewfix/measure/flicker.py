@@ -85,7 +85,7 @@ _MAX_REL_SIGMA = 0.10
 # coverage table (scripts/bench_measure.py --coverage: over 30 random synthetic
 # clips, libx264 CRF 18, the median error is about 0.02 %); 0.1 % before put over
 # 90 % of them within one sigma, which said less than the method knows.
-_COMPRESSION_FLOOR = 0.0004
+_COMPRESSION_FLOOR = 0.0002
 # Type B allowance (GUM, as above) when the bands stand still and no flat field is
 # given: the wall's own smooth shading at the band scale repeats in every frame like
 # the bands and no statistic can see it. On this project's synthetic walls with 2 %
