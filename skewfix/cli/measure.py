@@ -30,11 +30,11 @@ SAFETY_TEXT = (
 HELP = (
     "Measure the readout time (first to last row) of the camera mode that shot CLIP.\n\n"
     "Methods: 'flicker' for a steady shot of a plain, evenly lit wall under a flickering light "
-    "(give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, or an LED driver's rate; "
-    "shoot at a fast shutter); 'pan' for steady pans across vertical edges, ideally one way and "
+    "(give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, twice the mains frequency, or "
+    "an LED driver's rate, or 'auto'; shoot at a fast shutter; --flat for a flat-field take); 'pan' for steady pans across vertical edges, ideally one way and "
     "back; 'motion' for ordinary footage whose motion changes (whip pans that speed up and stop, "
     "handheld). 'auto' (the default) tries flicker when --light-hz is given, then motion, then "
-    "pan, and says why the others could not measure the clip.\n\n" + SAFETY_TEXT
+    "pan, says why the others could not measure the clip, and what to do when none could.\n\n" + SAFETY_TEXT
 )
 
 NEXT_STEPS = (
