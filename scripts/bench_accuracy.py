@@ -38,7 +38,7 @@ import cv2
 import numpy as np
 
 from skewfix.errors import SkewfixError
-from skewfix.measure.selfcal import auto_readout_resolver
+from skewfix.measure.motion_fit import auto_readout_resolver
 from skewfix.models.choice import parse_lens
 from skewfix.motion import FitSettings
 from skewfix.pipeline import FixOptions, fix_clip

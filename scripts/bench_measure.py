@@ -12,6 +12,14 @@ takes a working directory and returns a row dict (see ``row()``); add further
 methods (pan, motion) by appending functions to ``SCENARIOS``.
 
 Usage:  python scripts/bench_measure.py [--keep DIR] [--only SUBSTRING]
+        python scripts/bench_measure.py --coverage [N] [--only METHOD]
+
+``--coverage`` is the test of the uncertainties: N synthetic clips per method
+(default 30; flicker, pan, motion) with noise, texture, motion, line order and
+readout drawn at random from a seeded generator, and one table: how often the
+truth lies within the reported one and two sigma (targets: about two thirds,
+and at least 90 %), with the median and largest |error| / sigma. It takes
+several minutes; it is a benchmark, not a unit test.
 
 Safety note for anyone reproducing these scenes with real lights: flickering
 or strobing light can trigger photosensitive seizures, and mains-powered light
@@ -77,12 +85,16 @@ def row(scenario, true_s, est, order_true, order_expected, seconds, target_pct,
                 target_pct=target_pct, ok=abs(err) <= target_pct and order_ok, error=None)
 
 
-def _flicker_case(workdir, name, order_expected, target_pct=0.5, **kw):
+def _flicker_case(workdir, name, order_expected, target_pct=0.5, flat=False, **kw):
     truth = render_flicker_clip(Path(workdir) / f"{name}.mp4", **kw)
+    flat_profile = None
+    if flat:  # the same wall under steady light (no modulation), a few frames
+        flat_truth = render_flicker_clip(Path(workdir) / f"{name} flat.mp4", **dict(kw, n_frames=6, depth=0.0))
+        flat_profile = decode_profiles(flat_truth.path)[0].mean(axis=0)
     t0 = time.perf_counter()
     try:
         profiles, times = decode_profiles(truth.path)
-        est = measure_flicker(profiles, times, truth.light_hz, truth.frame_interval)
+        est = measure_flicker(profiles, times, truth.light_hz, truth.frame_interval, flat_profile=flat_profile)
     except SkewfixError as exc:
         return row(name, truth.readout_s, None, truth.line_order, order_expected,
                    time.perf_counter() - t0, target_pct, str(exc))
@@ -118,6 +130,29 @@ def flicker_textured_bottomup_2997(workdir):
                          width=1920, height=1080, fps=Fraction(30000, 1001), n_frames=36,
                          readout_s=0.024, light_hz=100.0, line_order="bottom-up",
                          texture=skimage.data.camera(), seed=103)
+
+
+def _shaded(workdir, label, fps, flat, seed, order_expected):
+    # a plain wall with 2 % smooth, non-polynomial shading (skewfix.synth.flicker.wall_shading);
+    # target 0.2 % with still bands given a flat field, and with drifting bands
+    return _flicker_case(workdir, f"flicker shaded 540p {label} seed {seed}", order_expected, target_pct=0.2,
+                         flat=flat, width=960, height=540, fps=fps, n_frames=24, readout_s=0.0185,
+                         light_hz=100.0, shading=0.02, seed=seed)
+
+
+def flicker_shaded_still_with_flat_field(workdir):
+    return [_shaded(workdir, "25fps still + flat", Fraction(25), True, seed, "undetermined") for seed in (1, 2, 3)]
+
+
+def flicker_shaded_drifting(workdir):
+    return [_shaded(workdir, "24fps drifting", Fraction(24), False, seed, "top-down") for seed in (1, 2, 3)]
+
+
+def flicker_shaded_still_without_flat_field(workdir):
+    # no target of its own (what the flat field is for): reported with the 0.5 % of the plain wall
+    return [_flicker_case(workdir, f"flicker shaded 540p 25fps still, no flat, seed {seed}", "undetermined",
+                          width=960, height=540, fps=Fraction(25), n_frames=24, readout_s=0.0185,
+                          light_hz=100.0, shading=0.02, seed=seed) for seed in (1, 2, 3)]
 
 
 # ---- pan scenarios (target: within 3 %) -------------------------------
@@ -159,8 +194,8 @@ def pan_720p25_bottom_up_from_rest(workdir):
 
 
 def _motion_case(workdir, name, camera, rate, readout, order, n_frames=48, width=960, height=540, target_pct=5.0):
-    """Self-calibration from the clip's own motion (skewfix.measure.selfcal)."""
-    from skewfix.measure.selfcal import measure_motion
+    """The motion method: the readout from the clip's own motion (skewfix.measure.motion_fit)."""
+    from skewfix.measure.motion_fit import measure_motion
     from skewfix.pipeline import analyse
     from skewfix.synth.scenes import photo_panorama
     from skewfix.synth.shutter import render_clip
@@ -207,7 +242,7 @@ def motion_global_shutter(workdir):
 
 def fix_auto_whip_pan(workdir):
     """`fix --readout auto` on a whip pan: the accuracy benchmark's residual metric (target <= 0.45 px)."""
-    from skewfix.measure.selfcal import auto_readout_resolver
+    from skewfix.measure.motion_fit import auto_readout_resolver
     from skewfix.pipeline import FixOptions, fix_clip
     from skewfix.synth.paths import WhipPan
     from skewfix.synth.residual import clip_residual, decode_rgb
@@ -225,10 +260,125 @@ def fix_auto_whip_pan(workdir):
     return result.readout, clip_residual(decode_rgb(out), truths, inner)
 
 
+
+
+# ---- coverage of the reported uncertainties -----------------------------------------------------
+def _coverage_flicker(workdir, i, rng):
+    """A wall under a 100 or 120 Hz light; still bands on a shaded wall get a flat-field take."""
+    import skimage.data
+
+    fps = [Fraction(24), Fraction(25), Fraction(30000, 1001), Fraction(30)][rng.integers(4)]
+    light = float(rng.choice([100.0, 120.0]))
+    interval = float(1 / fps)
+    readout = float(rng.uniform(0.010, 0.9 * interval))
+    still = abs(light / float(fps) - round(light / float(fps))) < 0.01
+    texture = None if still or rng.random() < 0.5 else getattr(skimage.data, ["camera", "astronaut"][rng.integers(2)])()
+    kw = dict(width=640, height=360, fps=fps, n_frames=int(rng.integers(12, 30)), readout_s=readout,
+              light_hz=light, line_order=["top-down", "bottom-up"][rng.integers(2)],
+              noise_sigma=float(rng.uniform(0.5, 2.5)), shading=float(rng.uniform(0.0, 0.02)),
+              shake_px=float(rng.choice([0.0, 0.0, 0.7])), texture=texture, seed=int(rng.integers(1 << 30)))
+    truth = render_flicker_clip(Path(workdir) / f"cov_flicker_{i}.mp4", **kw)
+    flat = None
+    if still and kw["shading"] > 0:
+        flat_kw = dict(kw, n_frames=8, depth=0.0, noise_sigma=kw["noise_sigma"])
+        flat_truth = render_flicker_clip(Path(workdir) / f"cov_flicker_{i}_flat.mp4", **flat_kw)
+        flat = decode_profiles(flat_truth.path)[0].mean(axis=0)
+    profiles, times = decode_profiles(truth.path)
+    est = measure_flicker(profiles, times, light, truth.frame_interval, flat_profile=flat)
+    what = f"{float(fps):.3f} fps {light:g} Hz{' still' if still else ''}{' flat' if flat is not None else ''}"
+    return readout, est, what
+
+
+def _coverage_pan(workdir, i, rng):
+    from skewfix.measure.pan import measure_pan
+    from skewfix.synth.edges import render_pan_clip
+
+    fps = [Fraction(25), Fraction(30), Fraction(24000, 1001)][rng.integers(3)]
+    readout = float(rng.uniform(0.008, 0.028))
+    speed = float(rng.uniform(500, 1500)) * float(rng.choice([-1, 1]))
+    both = rng.random() < 0.4
+    speeds = (speed, -speed) if both else (speed,)
+    tilt = float(rng.uniform(-0.7, 0.7)) if both else 0.0
+    path = Path(workdir) / f"cov_pan_{i}.mp4"
+    render_pan_clip(path, 480, 270, fps, 36 if both else 24, readout, speeds,
+                    ["top-down", "bottom-up"][rng.integers(2)], tilt, 0.5 if both else 0.35, 0.12,
+                    crf=int(rng.integers(14, 24)), noise_sigma=float(rng.uniform(0.002, 0.01)))
+    return readout, measure_pan(str(path)), f"{abs(speed):.0f} px/s{' both ways' if both else ''}"
+
+
+def _coverage_motion(workdir, i, rng):
+    from skewfix.measure.motion_fit import measure_motion
+    from skewfix.pipeline import analyse
+    from skewfix.synth.paths import Handheld, WhipPan
+    from skewfix.synth.scenes import harbour_scene, photo_panorama
+    from skewfix.synth.shutter import render_clip
+
+    width, height = 480, 270
+    rate = [Fraction(25), Fraction(30), Fraction(24000, 1001)][rng.integers(3)]
+    readout = float(rng.uniform(0.010, 0.030))
+    n = 30
+    if rng.random() < 0.6:
+        camera = WhipPan(peak_px_s=float(rng.uniform(1200, 3500)), centre_s=0.6, duration_s=float(rng.uniform(0.6, 1.0)),
+                         tilt_px_s=float(rng.uniform(-20, 20)))
+        what = f"whip pan {camera.peak_px_s:.0f} px/s"
+    else:
+        camera = Handheld(amplitude_px=float(rng.uniform(4, 12)), seed=int(rng.integers(100)))
+        what = f"handheld {camera.amplitude_px:.1f} px"
+    scene = photo_panorama(int(height * 1.5), 5000) if rng.random() < 0.5 else \
+        harbour_scene(int(height * 1.5), 5000, seed=int(rng.integers(100)))
+    order = ["top-down", "bottom-up"][rng.integers(2)]
+    path = Path(workdir) / f"cov_motion_{i}.mp4"
+    render_clip(path, scene, camera, width, height, rate, n, readout, order,
+                noise_sigma=float(rng.uniform(0.002, 0.01)), crf=int(rng.integers(12, 22)),
+                origin=(width * 0.8 + 200, height * 0.75))
+    return readout, measure_motion(analyse(str(path))), what
+
+
+COVERAGE = {"flicker": _coverage_flicker, "pan": _coverage_pan, "motion": _coverage_motion}
+
+
+def coverage(workdir, n_clips=30, only=None, seed=2026):
+    """N measured clips per method (refusals counted apart, further clips drawn in their place)."""
+    print(f"coverage of the reported one-sigma uncertainty, {n_clips} clips per method (seed {seed})")
+    head = "method  | clips | refused | within 1 sigma | within 2 sigma | median |err|/sigma | largest | median |error| %"
+    print(head)
+    print("-" * len(head))
+    rows = {}
+    for method, make in COVERAGE.items():
+        if only and only not in method:
+            continue
+        rng = np.random.default_rng([seed, len(method)])
+        z, errs, refused, i = [], [], 0, -1
+        while len(z) < n_clips and i < 2 * n_clips:  # refusals are counted, and more clips drawn
+            i += 1
+            try:
+                truth, est, what = make(workdir, i, rng)
+            except SkewfixError as exc:
+                refused += 1
+                print(f"  {method} clip {i}: refused: {str(exc)[:120]}", file=sys.stderr)
+                continue
+            z.append(abs(est.readout_s - truth) / est.uncertainty_s)
+            errs.append(abs(est.readout_s - truth) / truth * 100)
+            print(f"  {method} clip {i} ({what}): true {truth * 1e3:.3f} ms, measured {est.readout_s * 1e3:.3f} "
+                  f"± {est.uncertainty_s * 1e3:.3f}, |err|/sigma {z[-1]:.2f}", file=sys.stderr)
+        z = np.asarray(z)
+        m = len(z)
+        one, two = (float(np.mean(z <= 1)) if m else float("nan")), (float(np.mean(z <= 2)) if m else float("nan"))
+        print(f"{method:7s} | {m:5d} | {refused:7d} | {one:14.0%} | {two:14.0%} | {np.median(z):18.2f} | "
+              f"{np.max(z):7.2f} | {np.median(errs):.3f}")
+        rows[method] = (one, two)
+    ok = all(two >= 0.9 and 0.55 <= one <= 0.85 for one, two in rows.values())
+    print(f"targets (within 2 sigma >= 90 %, within 1 sigma about two thirds): {'met' if ok else 'MISSED'}")
+    return ok
+
+
 SCENARIOS = [
     flicker_1080p25_100hz_still,
     flicker_720p23976_120hz_shake,
     flicker_textured_bottomup_2997,
+    flicker_shaded_still_with_flat_field,
+    flicker_shaded_drifting,
+    flicker_shaded_still_without_flat_field,
     pan_1080p25_one_way,
     pan_720p2997_both_ways_tilted,
     pan_720p25_bottom_up_from_rest,
@@ -270,7 +420,15 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--keep", metavar="DIR", help="keep clips and plots in DIR")
     ap.add_argument("--only", metavar="TEXT", help="run scenarios whose name contains TEXT")
+    ap.add_argument("--coverage", nargs="?", type=int, const=30, metavar="N",
+                    help="the uncertainties' coverage over N random clips per method (default 30)")
+    ap.add_argument("--seed", type=int, default=2026, help="seed of the coverage clips")
     args = ap.parse_args(argv)
+    if args.coverage:
+        with tempfile.TemporaryDirectory() as tmp:
+            workdir = Path(args.keep) if args.keep else Path(tmp)
+            workdir.mkdir(parents=True, exist_ok=True)
+            return 0 if coverage(workdir, args.coverage, args.only, args.seed) else 1
 
     with tempfile.TemporaryDirectory() as tmp:
         workdir = Path(args.keep) if args.keep else Path(tmp)
@@ -279,7 +437,8 @@ def main(argv=None):
         for fn in SCENARIOS:
             if args.only and args.only not in fn.__name__:
                 continue
-            rows.append(fn(workdir))
+            got = fn(workdir)
+            rows.extend(got if isinstance(got, list) else [got])
         if rows:
             print_table(rows)
         ok = sum(r["ok"] for r in rows)

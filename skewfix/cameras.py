@@ -514,7 +514,7 @@ def plan_readout(text: str, line_order: str | None, lens=None) -> ReadoutPlan:
     from skewfix.models.choice import LensSpec
 
     if text.strip().lower() == "auto":
-        from skewfix.measure.selfcal import auto_readout_resolver
+        from skewfix.measure.motion_fit import auto_readout_resolver
 
         return ReadoutPlan(None, line_order or "top-down", "measured from this clip's motion",
                            auto_readout_resolver(line_order), lens or LensSpec())

@@ -28,6 +28,7 @@ import numpy as np
 from skewfix.buffers import PlanePool
 from skewfix.decode import VideoInfo, black_levels, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
+from skewfix.measure.motion_fit import line_order_note
 from skewfix.models.choice import LensSpec, ModelChoice, choose_model
 from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion,
                             load_solver)
@@ -445,6 +446,7 @@ class StreamingWarper(FrameWarper):
         except MeasurementRefused as exc:
             raise MeasurementRefused(f"{self.info.path}: {exc}") from None
         self.fit_settings = replace(self.fit_settings, kind=self.choice.kind)
+        self.line_order_note = line_order_note(pairs, clock, self.info.width, self.fit_settings)  # measure/motion_fit
 
     def _knot_settings(self, times: np.ndarray) -> FitSettings:
         """The fit settings with the clip's one knot grid, fixed by the first window."""
@@ -869,6 +871,9 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
         notes.append(f"{lost} frame(s) of the input lost (damaged file): " + "; ".join(errors[:3]))
     notes.append(f"motion model: {model.kind.summary()}" + (f" ({model.model_reason})" if model.model_reason else ""))
     notes.extend(model.warnings)
+    order_note = line_order_note(analysis.pairs, clock, info.width, replace(options.fit or FitSettings(), kind=model.kind)) \
+        if whole_clip else getattr(warper, "line_order_note", None)
+    notes.extend([order_note] if order_note else [])  # the line order doubted by the clip's motion
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "
                      "each shot was fitted on its own")

@@ -84,13 +84,13 @@ def test_pan_measure_writes_json_plot_and_camera(clips, tmp_path, capsys, config
 def motion_refuses(monkeypatch):
     """Stand-in for the motion method that refuses, as it must on a constant-velocity
     pan (the real method is tested in its own file)."""
-    fake = types.ModuleType("skewfix.measure.selfcal")
+    fake = types.ModuleType("skewfix.measure.motion_fit")
 
-    def measure_motion(analysis, line_order=None, kind=None):
+    def measure_motion(analysis, line_order=None, kind=None, progress=None):
         raise MeasurementRefused("the motion is too steady to reveal the readout")
 
     fake.measure_motion = measure_motion
-    monkeypatch.setitem(sys.modules, "skewfix.measure.selfcal", fake)
+    monkeypatch.setitem(sys.modules, "skewfix.measure.motion_fit", fake)
 
 
 def test_auto_falls_back_to_pan_and_says_why(clips, tmp_path, capsys, motion_refuses):
@@ -112,10 +112,59 @@ def test_auto_tries_flicker_first_when_a_light_is_given(clips, tmp_path, capsys,
     assert "flicker could not" in captured.err and "motion could not" in captured.err
 
 
-def test_auto_refusal_names_every_method(clips, capsys, motion_refuses):
-    assert main(["measure", clips["still"], "--quiet"]) == 1
+def test_auto_refusal_names_every_method_and_what_to_do(clips, capsys, motion_refuses, tmp_path):
+    png = tmp_path / "refused.png"
+    assert main(["measure", clips["still"], "--quiet", "--plot", str(png)]) == 1
     line = one_error_line(capsys)
     assert "no method could measure this clip" in line and "motion:" in line and "pan:" in line
+    # what to do next: a test clip, a saved camera, or candidates compared by eye
+    assert "flicker test" in line and "pan test" in line and "--readout NAME" in line
+    assert "preview --readout 12ms,16ms,20ms" in line
+    # the plot is written for a refusal too (PNG signature, ISO/IEC 15948)
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.fixture(scope="module")
+def wall_24fps(tmp_path_factory):
+    """A wall under a 100 Hz light (a lamp on 50 Hz mains: IEC 60038; the power goes as v^2, Joule's
+    law, so twice the mains frequency) shot at 24 fps: f/fps = 4.17, the bands drift 4 Hz."""
+    from skewfix.synth.flicker import render_flicker_clip
+
+    clip = tmp_path_factory.mktemp("wall24") / "wall24.mp4"
+    render_flicker_clip(clip, 320, 240, Fraction(24), 16, 0.020, 100.0, seed=3)
+    return str(clip)
+
+
+@pytest.mark.parametrize("given", ["50", "120"])
+def test_wrong_light_frequency_is_refused_in_one_line(wall_24fps, tmp_path, capsys, given):
+    png = tmp_path / "wrong.png"
+    rc = main(["measure", wall_24fps, "--method", "flicker", "--light-hz", given, "--quiet", "--plot", str(png)])
+    assert rc == 1
+    line = one_error_line(capsys)
+    assert "the bands drift as a 100 Hz light would" in line and "--light-hz 100" in line
+    if given == "50":  # the mains frequency given instead of twice it
+        assert "twice the mains frequency" in line
+    assert png.read_bytes()[:4] == b"\x89PNG"  # the refused fit is drawn, marked
+
+
+def test_light_hz_auto_says_which_and_why(wall_24fps, tmp_path, capsys):
+    out_json = tmp_path / "auto.json"
+    assert main(["measure", wall_24fps, "--method", "flicker", "--light-hz", "auto", "--json", str(out_json)]) == 0
+    err = capsys.readouterr().err
+    assert "--light-hz auto took 100 Hz" in err and "not with 120 Hz" in err
+    # the renderer's truth: 20 ms (the flicker method's target, 0.5 %)
+    assert json.loads(out_json.read_text())["readout_ms"] == pytest.approx(20.0, rel=0.005)
+
+
+def test_flat_field_of_another_size_is_refused(wall_24fps, clips, capsys):
+    assert main(["measure", wall_24fps, "--method", "flicker", "--light-hz", "100", "--flat", clips["pan"],
+                 "--quiet"]) == 1
+    assert "flat field" in one_error_line(capsys)
+
+
+def test_bad_light_hz_is_a_usage_problem(wall_24fps, capsys):
+    assert main(["measure", wall_24fps, "--light-hz", "mains", "--quiet"]) == 2
+    assert "--light-hz" in one_error_line(capsys)
 
 
 def test_quiet_prints_one_line(clips, capsys):

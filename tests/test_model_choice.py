@@ -5,7 +5,7 @@ from __future__ import annotations
 import truth
 from skewfix.models.choice import LensSpec
 from skewfix.pipeline import analyse, choose_for_analysis, choose_with_readout
-from skewfix.measure.selfcal import auto_readout_resolver
+from skewfix.measure.motion_fit import auto_readout_resolver
 
 W, H, FPS, READOUT = 480, 270, 30, 0.024
 

@@ -10,15 +10,24 @@ camera footage and animation we did not make:
   cars and a taxi moving through the frame, joined by hard cuts;
 * ``bigbuckbunny.mp4`` -- 1280x720 at 25 fps with AAC sound.
 
-`fix` must keep each clip's frame count, size, rate and sound, find the cuts
-in the edit, and `measure --method motion` must answer with a value or refuse
-in one line.
+`fix` must keep each clip's frame count, size, rate and sound, and find the
+cuts in the edit: that part checks passthrough only (none of these clips comes
+with a known readout, so nothing here checks a correction's size).
+
+What is known for the readout: nobody has published the readout of the cameras
+that shot these clips, so no test can hold a measured value against a truth.
+What can be known is whether the clip's motion could reveal one. In
+``carphone_pristine.mp4`` the camera rides with the car, whose interior fills
+most of the frame around the speaker (seen in frames 0, 60 and 119 when this
+test was written; the window on the right is a small part): the whole picture moves well under a
+pixel per frame (checked below with OpenCV's phase correlation), far too
+little and too steady for any readout to show. `measure --method motion` must
+therefore refuse, in one line naming the clip, rather than guess.
 """
 
 from __future__ import annotations
 
 import importlib.metadata
-import re
 import subprocess
 import sys
 from fractions import Fraction
@@ -98,18 +107,20 @@ def test_fix_keeps_count_size_rate_and_sound(name, tmp_path):
         assert any(f"{len(BIKES_CUTS)} cut(s)" in note for note in result.notes), result.notes
 
 
-def test_measure_motion_answers_with_a_value_or_one_line(tmp_path):
+def test_measure_motion_refuses_a_clip_whose_motion_cannot_tell(tmp_path):
     src = sample_clip("carphone_pristine.mp4")
+    # OpenCV's phase correlation (a reference library) between consecutive frames: the picture
+    # moves well under a pixel per frame in most pairs
+    with av.open(str(src)) as container:
+        grey = [f.to_ndarray(format="gray").astype(np.float64) for f in container.decode(video=0)]
+    window = cv2.createHanningWindow(grey[0].shape[::-1], cv2.CV_64F)
+    shifts = [np.hypot(*cv2.phaseCorrelate(a, b, window)[0]) for a, b in zip(grey, grey[1:])]
+    assert np.median(shifts) < 1.0
     proc = subprocess.run([sys.executable, "-m", "skewfix", "measure", str(src), "--method", "motion", "--quiet"],
                           capture_output=True, text=True, timeout=300, cwd=tmp_path)
     assert "Traceback" not in proc.stderr
-    if proc.returncode == 0:
-        match = re.search(r"readout\s+([0-9.]+) ms", proc.stdout)
-        assert match, proc.stdout
-        # a readout is never longer than the frame interval, 1001/30 ms here (fact of the trade)
-        assert 0.0 <= float(match.group(1)) <= 1001 / 30 + 1e-3
-    else:
-        lines = proc.stderr.strip().splitlines()
-        assert proc.returncode == 1 and len(lines) == 1 and lines[0].startswith("skewfix: "), proc.stderr
-        assert src.name in lines[0]
+    lines = proc.stderr.strip().splitlines()
+    assert proc.returncode == 1 and proc.stdout == "", (proc.stdout, proc.stderr)
+    assert len(lines) == 1 and lines[0].startswith("skewfix: ") and src.name in lines[0], proc.stderr
+    assert "too steady to reveal the readout" in lines[0]
     assert not list(tmp_path.iterdir())  # measuring writes nothing unless asked

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 import truth
-from skewfix.measure.selfcal import measure_motion
+from skewfix.measure.motion_fit import measure_motion
 from skewfix.pipeline import FixOptions, analyse, fix_clip
 from skewfix.warp import correction_map
 

@@ -32,11 +32,17 @@ SAFETY_TEXT = (
 HELP = (
     "Measure the readout time (first to last row) of the camera mode that shot CLIP.\n\n"
     "Methods: 'flicker' for a steady shot of a plain, evenly lit wall under a flickering light "
-    "(give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, or an LED driver's rate; "
-    "shoot at a fast shutter); 'pan' for steady pans across vertical edges, ideally one way and "
+    "(give --light-hz: 100 or 120 for mains lighting on 50 or 60 Hz, twice the mains frequency, or "
+    "an LED driver's rate, or 'auto'; shoot at a fast shutter; --flat for a flat-field take); 'pan' for steady pans across vertical edges, ideally one way and "
     "back; 'motion' for ordinary footage whose motion changes (whip pans that speed up and stop, "
     "handheld). 'auto' (the default) tries flicker when --light-hz is given, then motion, then "
-    "pan, and says why the others could not measure the clip.\n\n" + SAFETY_TEXT
+    "pan, says why the others could not measure the clip, and what to do when none could.\n\n" + SAFETY_TEXT
+)
+
+NEXT_STEPS = (
+    "what to do next: shoot a flicker test (a plain wall under a mains lamp, --light-hz 100 or 120) or a "
+    "pan test (steady pans across vertical edges), use a saved camera of this mode (--readout NAME), or "
+    "compare candidate readouts by eye with preview --readout 12ms,16ms,20ms"
 )
 
 _SHUTTER = re.compile(r"^\s*1\s*/\s*([0-9]*\.?[0-9]+)\s*(s)?\s*$")
@@ -60,6 +66,21 @@ def parse_exposure(text: str | None) -> float | None:
     if seconds <= 0:
         raise UsageProblem(f"the exposure must be longer than 0: {text!r}")
     return seconds
+
+
+def parse_light_hz(text: str | None):
+    """``--light-hz``: None, "auto", or a positive frequency in Hz."""
+    if text is None:
+        return None
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        value = float(text.strip().removesuffix("Hz").removesuffix("hz"))
+    except ValueError:
+        raise UsageProblem(f"--light-hz must be a frequency in Hz or 'auto', not {text!r}") from None
+    if not (math.isfinite(value) and value > 0):
+        raise UsageProblem(f"--light-hz must be a positive frequency, not {text}")
+    return value
 
 
 def frame_ranges(indices) -> str:
@@ -106,10 +127,10 @@ def write_json(path: Path, data: dict) -> None:
     write_whole(path, json.dumps(_finite_or_none(data), indent=2, allow_nan=False) + "\n")
 
 
-def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress, frames=None):
-    """Row profiles frame by frame (never the frames themselves), then the joint flicker fit."""
+def _profiles(clip: str, fps, progress, stage: str = "analyse", frames=None):
+    """Row profiles frame by frame (never the frames themselves), the frame times and the clip's info."""
     from skewfix.decode import open_source
-    from skewfix.measure.flicker import measure_flicker, row_profiles_from_luma
+    from skewfix.measure.flicker import row_profiles_from_luma
     from skewfix.pipeline import black_levels, expected_frames
 
     profiles, times = [], []
@@ -120,19 +141,42 @@ def run_flicker(clip: str, light_hz: float, exposure_s, fps, progress, frames=No
         for frame in source.frames():
             profiles.append(row_profiles_from_luma(frame.luma, black_level=black))
             times.append(frame.time)
-            progress("analyse", len(times), total)
+            progress(stage, len(times), total)
     if not profiles:
         from skewfix.errors import InputError
 
         raise InputError(f"{clip}: no frame could be decoded")
-    times = np.asarray(times)
+    return np.stack(profiles), np.asarray(times), info
+
+
+def flat_field(path: str, fps, height: int, progress) -> np.ndarray:
+    """The mean row profile of a flat-field take (``--flat``), checked against the clip's height."""
+    profiles, _, info = _profiles(path, fps, progress, "flat field")
+    if profiles.shape[1] != height:
+        from skewfix.errors import InputError
+
+        raise InputError(f"{path}: the flat field is {info.width}x{info.height}, the clip has {height} rows; "
+                         "shoot the flat field in the same camera mode")
+    return profiles.mean(axis=0)
+
+
+def run_flicker(clip: str, light_hz, exposure_s, fps, progress, flat: str | None = None, frames=None):
+    """The joint flicker fit, under ``light_hz`` (a number, or "auto") with an optional flat field."""
+    from skewfix.measure.flicker import measure_flicker, measure_flicker_auto
+
+    profiles, times, info = _profiles(clip, fps, progress, frames=frames)
     interval = clip_frame_interval(info.frame_interval, times)
     if not interval:
         raise UsageProblem(f"{clip}: the frame rate is not known (give --fps)")
+    flat_profile = flat_field(flat, fps, profiles.shape[1], progress) if flat else None
     try:
-        return measure_flicker(np.stack(profiles), times, light_hz, interval, exposure_s), info
+        if light_hz == "auto":
+            return measure_flicker_auto(profiles, times, interval, exposure_s, flat_profile), info
+        return measure_flicker(profiles, times, light_hz, interval, exposure_s, flat_profile=flat_profile), info
     except MeasurementRefused as exc:
-        raise MeasurementRefused(f"{clip}: {exc}") from None
+        again = MeasurementRefused(f"{clip}: {exc}")
+        again.partial = getattr(exc, "partial", None)
+        raise again from None
 
 
 class _Measurer:
@@ -144,10 +188,11 @@ class _Measurer:
     the footage is measured again at that readout, as ``fix --readout auto`` does.
     """
 
-    def __init__(self, clip, fps, light_hz, exposure_s, progress, model="auto", lens=None, frames=None):
+    def __init__(self, clip, fps, light_hz, exposure_s, progress, model="auto", lens=None, flat=None, frames=None):
         from skewfix.models.choice import LensSpec
 
         self.clip, self.fps, self.light_hz, self.exposure_s = clip, fps, light_hz, exposure_s
+        self.flat = flat
         self.progress, self.frames = progress, frames
         self.model, self.lens = model, lens or LensSpec()
         self.analysis = None
@@ -165,7 +210,7 @@ class _Measurer:
     def run(self, method: str):
         if method == "flicker":
             estimate, self.info = run_flicker(self.clip, self.light_hz, self.exposure_s, self.fps,
-                                              self.progress, self.frames)
+                                              self.progress, self.flat, self.frames)
             return estimate
         if method == "pan":
             from skewfix.measure.pan import measure_pan
@@ -175,13 +220,13 @@ class _Measurer:
 
     def _run_motion(self):
         from skewfix.measure.result import ModelUsed
-        from skewfix.measure.selfcal import measure_motion
+        from skewfix.measure.motion_fit import measure_motion
         from skewfix.pipeline import choose_with_readout
 
         found = {}
 
         def resolver(analysis, kind):
-            est = found["estimate"] = measure_motion(analysis, None, kind=kind)
+            est = found["estimate"] = measure_motion(analysis, None, kind=kind, progress=self.progress)
             return est.readout_s, est.line_order, None
 
         _, _, _, chosen = choose_with_readout(self._analysis(), self.model, self.lens, 0.0, "top-down", resolver)
@@ -207,14 +252,21 @@ class _Measurer:
             save_motion_csv(csv_path, model, clock, "middle", first_number=first_frame_number(analysis.info))
 
 
-def plot_estimate(estimate, path: Path) -> None:
+def plot_estimate(estimate, path: Path, refused: str | None = None) -> None:
+    """The method's plot; for a refusal (``estimate`` None, or what the method saw) one
+    marked as refused, with the reason."""
+    from skewfix.measure.plots import plot_refusal
+
+    if estimate is None or not estimate.diagnostics:
+        write_whole(path, lambda tmp: plot_refusal(refused or "no result", tmp))
+        return
     if estimate.method == "flicker":
         from skewfix.measure.flicker import plot_flicker as plot
     elif estimate.method == "pan":
         from skewfix.measure.pan import plot_pan as plot
     else:
         from skewfix.measure.plots import plot_residual_curve as plot
-    write_whole(path, lambda tmp: plot(estimate, tmp))
+    write_whole(path, lambda tmp: plot(estimate, tmp, refused=refused))
 
 
 def summary_lines(estimate) -> list[str]:
@@ -237,10 +289,16 @@ def summary_lines(estimate) -> list[str]:
 def measure_command(
     clip: str = typer.Argument(..., help="Test clip or shot (or a numbered image sequence with --fps)."),
     method: str = typer.Option("auto", "--method", "-m", help="auto, flicker, pan or motion."),
-    light_hz: Optional[float] = typer.Option(
+    light_hz: Optional[str] = typer.Option(
         None, "--light-hz",
-        help="Flicker frequency of the light's intensity, Hz (100/120 for mains at 50/60 Hz). "
+        help="Flicker frequency of the light's intensity, Hz: 100/120 for mains at 50/60 Hz (twice the "
+             "mains frequency: 100, not 50), or 'auto' to pick 100 or 120 from the band drift. "
              "Flickering lights can trigger photosensitive seizures."),
+    flat: Optional[str] = typer.Option(
+        None, "--flat",
+        help="A flat-field take for the flicker method: the same wall in the same camera mode under "
+             "steady light (or at an exposure of a whole number of flicker periods), divided out so the "
+             "wall's own shading cannot pass for still bands."),
     json_path: Optional[str] = typer.Option(None, "--json", help="Also write the result as JSON here."),
     plot: Optional[str] = typer.Option(None, "--plot", help="Write a PNG to check the result by eye."),
     save_camera: Optional[str] = typer.Option(None, "--save-camera",
@@ -267,8 +325,11 @@ def measure_command(
     model, lens = model_and_lens(model, hfov, focal_length, lens_distortion)
     motion_json = check_report_path(save_motion, clip, "--save-motion")
     motion_csv = check_report_path(save_motion_csv, clip, "--save-motion-csv")
-    if light_hz is not None and not (math.isfinite(light_hz) and light_hz > 0):
-        raise UsageProblem(f"--light-hz must be a positive frequency, not {light_hz:g}")
+    light_hz = parse_light_hz(light_hz)
+    if flat is not None and not Path(flat).exists() and "%" not in flat and "#" not in flat:
+        raise UsageProblem(f"--flat {flat}: no such file")
+    if flat is not None and os.path.realpath(flat) == os.path.realpath(clip):
+        raise UsageProblem("--flat names the clip itself: shoot the flat field as a take of its own")
     if method == "flicker" and light_hz is None:
         raise UsageProblem("--method flicker needs --light-hz (100 or 120 for mains lighting on "
                            "50 or 60 Hz, or the LED driver's rate)")
@@ -298,21 +359,30 @@ def measure_command(
                 f"not {method}")
 
     refused: list[tuple[str, str]] = []
+    partial = None  # what a refused method saw, for --plot
     estimate = None
     with TerminalProgress(quiet) as progress:
-        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress, model, lens,
+        measurer = _Measurer(clip, rate, light_hz, exposure_s, progress, model, lens, flat,
                              parse_frame_range(frames))
         for name in order:
             try:
                 estimate = measurer.run(name)
                 break
             except MeasurementRefused as exc:
-                if method != "auto":
-                    raise
+                partial = partial or getattr(exc, "partial", None)
                 refused.append((name, str(exc)))
+                if method != "auto":
+                    break
     if estimate is None:
-        raise MeasurementRefused("no method could measure this clip: "
-                                 + "; ".join(f"{name}: {why}" for name, why in refused))
+        if method == "auto":
+            message = ("no method could measure this clip: " + "; ".join(f"{name}: {why}" for name, why in refused)
+                       + "; " + NEXT_STEPS)
+        else:
+            message = refused[-1][1]
+        if plot_out is not None:
+            plot_estimate(partial, plot_out, refused=message)
+            say(f"wrote {plot_out} (marked as refused)")
+        raise MeasurementRefused(message)
     # the frames used, in the clip's numbering (README: frame numbers), not as positions in the part read
     first = first_delivered_number(measurer.info)
     estimate.frames_used = [first + int(k) for k in estimate.frames_used]

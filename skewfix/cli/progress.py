@@ -27,8 +27,8 @@ class TerminalProgress:
                 TextColumn("{task.description:>15}"),
                 BarColumn(bar_width=32),
                 MofNCompleteColumn(),
-                TextColumn("frames"),
-                TextColumn("{task.fields[fps]:>6.1f} fps"),
+                TextColumn("{task.fields[unit]}"),
+                TextColumn("{task.fields[fps]:>6.1f}/s"),
                 TimeRemainingColumn(),
                 console=Console(stderr=True),
                 transient=False,
@@ -44,7 +44,9 @@ class TerminalProgress:
         if self._progress is None:
             return
         if stage not in self._tasks:
-            self._tasks[stage] = self._progress.add_task(STAGE_LABELS.get(stage, stage), total=total, fps=0.0)
+            unit = "fits" if "search" in stage else "frames"  # the motion method's readout search counts fits
+            self._tasks[stage] = self._progress.add_task(STAGE_LABELS.get(stage, stage), total=total, fps=0.0,
+                                                         unit=unit)
             self._started[stage] = time.perf_counter()
         elapsed = max(time.perf_counter() - self._started[stage], 1e-6)
         self._progress.update(self._tasks[stage], completed=done, total=total, fps=done / elapsed)

@@ -51,7 +51,7 @@ import math
 import numpy as np
 
 from skewfix.errors import InputError, MeasurementRefused
-from skewfix.measure.result import ReadoutEstimate
+from skewfix.measure.result import ReadoutEstimate, refusal
 
 __all__ = ["measure_flicker", "row_profiles_from_luma", "plot_flicker"]
 
@@ -81,9 +81,23 @@ _ORDER_CHI2 = 25.0       # five sigma between the two line orders
 _MAX_REL_SIGMA = 0.10
 # Type B allowance (GUM, JCGM 100:2008: uncertainty evaluated by means other
 # than statistics) for what H.264 inter-frame prediction does to faint band
-# changes: on this project's synthetic clips (libx264, CRF 18) it moved results
-# by up to about 0.1 %, which no statistic of one clip shows. Relative, 1 sigma.
-_COMPRESSION_FLOOR = 0.001
+# changes, which no statistic of one clip shows. Relative, 1 sigma. Set from the
+# coverage table (scripts/bench_measure.py --coverage: over 30 random synthetic
+# clips, libx264 CRF 18, the median error is about 0.02 %); 0.1 % before put over
+# 90 % of them within one sigma, which said less than the method knows.
+_COMPRESSION_FLOOR = 0.0002
+# Type B allowance (GUM, as above) when the bands stand still and no flat field is
+# given: the wall's own smooth shading at the band scale repeats in every frame like
+# the bands and no statistic can see it. On this project's synthetic walls with 2 %
+# shading (skewfix.synth.flicker.wall_shading; scripts/bench_measure.py --only shaded)
+# it moved results by up to 0.24 %. Relative, 1 sigma.
+_STILL_SHADING_FLOOR = 0.0025
+# Type B allowance when the bands drift but little over the clip (under half of their
+# energy changes between frames): the profile common to all frames then holds most of
+# the bands, and inter-frame compression of the small moving part moved results by up to
+# about 0.1 % on this project's synthetic clips (scripts/bench_measure.py, the 720p
+# 23.976 fps clip under 120 Hz: -0.11 %). Relative, 1 sigma.
+_LITTLE_DRIFT_FLOOR = 0.001
 # Harmonics fitted with the fundamental (the readout comes from the fundamental).
 _HARMONICS = 3
 
@@ -338,6 +352,94 @@ def _line_order(z, t, light_hz, frame_interval, centred, sigma_z2):
 
 
 # ----------------------------------------------------------------------------
+# the light's frequency, from the drift of the bands between frames
+# ----------------------------------------------------------------------------
+# The light frequencies people film under (from memory: IEC 60038 mains at 50 and 60 Hz; a
+# lamp on AC flickers at twice the mains frequency, so 100 and 120 Hz).
+USUAL_LIGHT_HZ = (100.0, 120.0)
+
+
+def _drift_misfit(z, t, nu, centred):
+    """What is left of the frame amplitudes ``z`` after the best ``Z exp(i 2 pi nu t)``
+    (per drift frequency ``nu``, Hz, signed; an array)."""
+    nu = np.atleast_1d(np.asarray(nu, float))
+    w = np.exp(1j * 2 * np.pi * nu[:, None] * (t - t[0])[None, :])
+    if centred:
+        w = w - w.mean(axis=1, keepdims=True)
+    ww = np.sum(np.abs(w) ** 2, axis=1)
+    proj = np.where(ww > 1e-9, np.abs(w.conj() @ z) ** 2 / np.maximum(ww, 1e-300), 0.0)
+    return float(np.sum(np.abs(z) ** 2)) - proj
+
+
+def frequency_evidence(z, t, sigma_z2, centred, candidates_hz):
+    """How well each candidate light frequency explains the band drift between frames.
+
+    Frame ``k``'s band phase moves with the light's, ``exp(+-i 2 pi f t_k)`` (the sign is the
+    line order), so the drift per frame fixes ``f`` modulo the frame rate. Each candidate is
+    tried in both orders within the light's tolerance; its misfit is compared with the best
+    free drift (a fine scan over one frame rate) in units of the amplitudes' noise
+    (chi-square). Returns (chi2 per candidate, the best free drift in Hz, its chi2 against
+    no drift at all).
+    """
+    n = len(z)
+    tt = np.asarray(t, float)
+    duration = float(np.ptp(tt)) if n > 1 else 0.0
+    if n < 3 or duration <= 0:
+        return {f: 0.0 for f in candidates_hz}, 0.0, 0.0
+    from scipy.optimize import minimize_scalar
+
+    fps = (n - 1) / duration
+    step = 1.0 / (20.0 * duration)
+
+    def lowest(grid):
+        """The least misfit over a grid of drifts, refined between its neighbours (Brent)."""
+        m = _drift_misfit(z, tt, grid, centred)
+        i = int(np.argmin(m))
+        lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+        if hi - lo <= 0:
+            return float(grid[i]), float(m[i])
+        sol = minimize_scalar(lambda nu: float(_drift_misfit(z, tt, [nu], centred)[0]), bounds=(lo, hi),
+                              method="bounded", options={"xatol": 1e-6 * step})
+        return (float(sol.x), float(sol.fun)) if sol.fun < m[i] else (float(grid[i]), float(m[i]))
+
+    best_nu, best = lowest(np.arange(-fps / 2, fps / 2 + step, step))
+    dof = max(2 * n - 3, 1)
+    scale = max(1.0, best / (dof * sigma_z2)) if sigma_z2 > 0 else 1.0
+    unit = sigma_z2 * scale if sigma_z2 > 0 else max(best / dof, 1e-300)
+    out = {}
+    for f in candidates_hz:
+        grid = np.arange(f * (1 - _LIGHT_TOL), f * (1 + _LIGHT_TOL) + step, step)
+        m = min(lowest(grid)[1], lowest(-grid[::-1])[1])
+        out[f] = max(m - best, 0.0) / unit
+    still = float(_drift_misfit(z, tt, [0.0], centred)[0]) if not centred else best
+    return out, best_nu, max(still - best, 0.0) / unit
+
+
+def _frequency_verdict(z, t, sigma_z2, centred, f_given, frame_interval):
+    """(refusal message or None, note, the drift in Hz) on the light frequency given, from the
+    band drift."""
+    cands = [f_given] + [f for f in USUAL_LIGHT_HZ if abs(f - f_given) > 1e-9]
+    chi, drift, moving = frequency_evidence(z, t, sigma_z2, centred, cands)
+    fps = 1.0 / frame_interval
+    if moving < _ORDER_CHI2 and not centred:
+        return None, drift, (f"the bands stand still, so the light's frequency could not be checked "
+                      f"(any whole multiple of the {fps:.5g} fps frame rate looks alike); "
+                      "lights on AC mains flicker at twice its frequency: 100 Hz, not 50 (120, not 60)")
+    if chi[f_given] <= _ORDER_CHI2:
+        return None, drift, (f"the band drift ({abs(drift):.3g} Hz modulo the frame rate) agrees with a "
+                      f"{f_given:g} Hz light")
+    fits = [f for f in USUAL_LIGHT_HZ if chi.get(f, np.inf) <= _ORDER_CHI2]
+    half = (" (lights flicker at twice the mains frequency)" if any(abs(f - 2 * f_given) < 1e-6 for f in fits)
+            else "")
+    if fits:
+        return (f"the bands drift as a {fits[0]:g} Hz light would, not as {f_given:g} Hz{half}: "
+                f"give --light-hz {fits[0]:g} (or --light-hz auto)"), drift, None
+    return (f"the bands drift by {abs(drift):.3g} Hz modulo the {fps:.5g} fps frame rate, which a "
+            f"{f_given:g} Hz light cannot give (it would drift {abs(_wrap(f_given, fps)):.3g} Hz): check "
+            "--light-hz, or try --light-hz auto"), drift, None
+
+
+# ----------------------------------------------------------------------------
 # the estimator
 # ----------------------------------------------------------------------------
 def measure_flicker(
@@ -346,6 +448,8 @@ def measure_flicker(
     light_hz: float,
     frame_interval: float,
     exposure_s: float | None = None,
+    check_light: bool = True,
+    flat_profile: np.ndarray | None = None,
 ) -> ReadoutEstimate:
     """Measure the readout time from flicker bands, fitting all frames jointly.
 
@@ -360,6 +464,11 @@ def measure_flicker(
                    most this
     exposure_s     shutter time if known (only used to explain a failure and
                    to note the expected band contrast ``|sinc(f*exposure)|``)
+    check_light    refuse when the band drift between frames contradicts ``light_hz``
+                   (`frequency_evidence`); a note says what was checked
+    flat_profile   (H,) row profile of a flat-field take of the same wall (steady light, or
+                   an exposure of a whole number of flicker periods), divided out first, so
+                   that the wall's own shading cannot pass for still bands
 
     Raises MeasurementRefused when there are no bands to measure. Filming the
     test clip: flickering/strobing lights can trigger photosensitive seizures;
@@ -398,6 +507,14 @@ def measure_flicker(
             "at several hundred Hz), shot at a fast shutter on a plain, evenly lit wall")
 
     q_all = np.log(np.maximum(p, level * 1e-3))
+    if flat_profile is not None:
+        flat = np.asarray(flat_profile, dtype=np.float64).reshape(-1)
+        if flat.shape != (height,) or not np.all(np.isfinite(flat)):
+            raise InputError(f"the flat field has {flat.size} rows, the clip {height}: use a flat-field "
+                             "take of the same camera mode")
+        if not np.median(flat) > 0:
+            raise InputError("the flat field is black: shoot it under the same light as the test clip")
+        q_all = q_all - np.log(np.maximum(flat, np.median(flat) * 1e-3))[None, :]
     tt = t - t[0]
     theta = 2.0 * np.pi * f * tt
     drift_frac = 1.0 - abs(np.mean(np.exp(1j * theta))) ** 2 if n > 1 else 0.0
@@ -472,6 +589,11 @@ def measure_flicker(
 
     kappa = best["kappa"]
     sigma_kappa = math.hypot(total(best), _COMPRESSION_FLOOR * kappa)
+    if not common and flat_profile is None:
+        sigma_kappa = math.hypot(sigma_kappa, _STILL_SHADING_FLOOR * kappa)
+    moving_share = 1.0 - abs(np.mean(np.exp(2j * np.pi * f * (t[best["used"]] - t[best["used"]][0])))) ** 2
+    if common and moving_share < 0.5:
+        sigma_kappa = math.hypot(sigma_kappa, _LITTLE_DRIFT_FLOOR * kappa)
     if sigma_kappa > _MAX_REL_SIGMA * kappa:
         if common:
             why = ("the bands are too faint or too few against what changes between "
@@ -499,9 +621,12 @@ def measure_flicker(
     xb = _sin_basis(kappa, best["y"], height, best["basis"], _HARMONICS)
     ginv = np.linalg.pinv(xb @ xb.T)
     sigma_z2 = best["sigma2"] * float(ginv[0, 0] + ginv[1, 1])
+    verdict, drift_hz, light_note = _frequency_verdict(z, t[used], sigma_z2, common, f, frame_interval)
     order, order_notes, order_info = _line_order(z, t[used], f, frame_interval, common,
                                                  sigma_z2)
     notes.extend(order_notes)
+    if light_note:
+        notes.append(light_note)
 
     if common:
         notes.append("bands drift between frames: the profile common to all frames "
@@ -510,10 +635,17 @@ def measure_flicker(
         if keep < 0.5:
             notes.append(f"the bands drift little over the clip (only {keep:.0%} of their "
                          "energy changes between frames): inter-frame compression can bias "
-                         "this by a few tenths of a percent; a longer clip helps")
+                         f"this by a few tenths of a percent (the uncertainty includes {_LITTLE_DRIFT_FLOOR:.1%} for it); "
+                         "a longer clip helps")
+    elif flat_profile is not None:
+        notes.append("bands (nearly) still: the flat field was divided out and a smooth background "
+                     "fitted per frame")
     else:
-        notes.append("bands (nearly) still: a smooth background was fitted per frame; "
-                     "texture on the wall can bias this, so use a plain, evenly lit wall")
+        notes.append("bands (nearly) still: a smooth background was fitted per frame, so the wall's own "
+                     f"faint shading at the band scale can pass for bands (a few tenths of a percent: the "
+                     f"uncertainty includes {_STILL_SHADING_FLOOR:.2%} for it); "
+                     "give --flat (the same wall under steady light) or shoot at a frame rate at which the "
+                     "bands drift (f/fps not a whole number, e.g. 24 or 30 fps under a 100 Hz light)")
     if exposure_s is not None and exposure_s > 0:
         sf = abs(float(np.sinc(f * exposure_s)))
         if sf < 0.5:
@@ -574,7 +706,7 @@ def measure_flicker(
                        (c["kappa"] / f, total(c) / f) for c in cands},
         "line_order_info": order_info,
     }
-    return ReadoutEstimate(
+    estimate = ReadoutEstimate(
         readout_s=readout,
         uncertainty_s=sigma_readout,
         line_order=order,
@@ -585,6 +717,11 @@ def measure_flicker(
         diagnostics=diagnostics,
         notes=notes,
     )
+    if check_light and verdict:
+        exc = refusal(verdict, estimate)
+        exc.drift_hz = drift_hz
+        raise exc
+    return estimate
 
 
 def _global_shutter_hint(q, theta, sigma2, m):
@@ -719,7 +856,7 @@ def _solve(q, rows, height, degree, common, kappas, kappa_max, shifts=None,
 # ----------------------------------------------------------------------------
 # plot
 # ----------------------------------------------------------------------------
-def plot_flicker(estimate: ReadoutEstimate, path) -> None:
+def plot_flicker(estimate: ReadoutEstimate, path, refused: str | None = None) -> None:
     """Write a PNG to check a flicker measurement by eye.
 
     Top: the measured band profile (detrended log luminance per row) of a few
@@ -785,7 +922,72 @@ def plot_flicker(estimate: ReadoutEstimate, path) -> None:
     ax.set_ylabel("phase (rad, unwrapped)")
     ax.legend(loc="best", fontsize=8)
 
-    fig.suptitle(f"flicker ({f:g} Hz): readout {estimate.readout_s * 1e3:.3f} ± "
-                 f"{estimate.uncertainty_s * 1e3:.3f} ms, {estimate.line_order}, "
-                 f"{len(estimate.frames_used)} frames", fontsize=13)
+    from skewfix.measure.plots import mark_refused, title_for
+
+    fig.suptitle(f"flicker ({f:g} Hz): " + title_for(estimate, refused).split(": ", 1)[1], fontsize=13)
+    mark_refused(fig, refused)
     save_png(fig, path)
+
+
+def measure_flicker_auto(row_profiles, frame_times, frame_interval, exposure_s=None, flat_profile=None):
+    """``--light-hz auto``: the readout under whichever usual light frequency (`USUAL_LIGHT_HZ`)
+    the band drift between frames agrees with; a note says which and why.
+
+    Each usual frequency is fitted and checked against the drift (`frequency_evidence`).
+    When exactly one agrees it is taken. When the bands stand still both may agree: at a
+    frame rate that divides one of them and not the other (25 fps: 100 Hz stands still,
+    120 Hz would drift) still bands pick that one; otherwise the frequency cannot be told
+    and the measurement is refused. When none agrees, the drift still allows the lowest
+    frequency ``n * fps +- drift`` whose readout fits in the frame interval, which is taken
+    with a note (an LED driver's own rate, say).
+    """
+    results, refusals, drifts = {}, {}, {}
+    for f in USUAL_LIGHT_HZ:
+        try:
+            results[f] = measure_flicker(row_profiles, frame_times, f, frame_interval, exposure_s,
+                                         check_light=True, flat_profile=flat_profile)
+        except MeasurementRefused as exc:
+            refusals[f] = str(exc)
+            drifts[f] = getattr(exc, "drift_hz", None)
+    fps = 1.0 / frame_interval
+    if len(results) == 1:
+        f, est = next(iter(results.items()))
+        other = next(g for g in USUAL_LIGHT_HZ if g != f)
+        est.notes.insert(0, f"--light-hz auto took {f:g} Hz: the band drift agrees with it and not with "
+                            f"{other:g} Hz at {fps:.5g} fps")
+        return est
+    if len(results) == 2:
+        a, b = (results[f] for f in USUAL_LIGHT_HZ)
+        still = {f: abs(f / fps - round(f / fps)) < 1e-3 for f in USUAL_LIGHT_HZ}
+        seen_still = all("stand still" in " ".join(e.notes) for e in results.values())
+        if seen_still and sum(still.values()) == 1:
+            f = next(g for g, s in still.items() if s)
+            est = results[f]
+            est.notes = [n for n in est.notes if "could not be checked" not in n]
+            est.notes.insert(0, f"--light-hz auto took {f:g} Hz: the bands stand still, which at {fps:.5g} fps "
+                                f"only a {f:g} Hz light does")
+            return est
+        raise refusal(
+            f"--light-hz auto cannot tell a 100 Hz from a 120 Hz light here (readout "
+            f"{a.readout_s * 1e3:.3f} or {b.readout_s * 1e3:.3f} ms): the bands drift alike for both at "
+            f"{fps:.5g} fps; give --light-hz (100 on 50 Hz mains, 120 on 60 Hz), or shoot at a frame rate "
+            "at which they differ (24, 25 or 30 fps)", a)
+    # neither usual frequency: the drift itself, modulo the frame rate
+    drift = next((d for d in drifts.values() if d is not None), None)
+    if drift is None:
+        raise refusal("--light-hz auto: " + next(iter(refusals.values())), None)
+    drift = abs(drift)
+    # the lowest n * fps +- drift giving a readout of at most the frame interval: try a few upwards
+    options = sorted({n * fps + s * drift for n in range(1, 80) for s in (-1.0, 1.0) if n * fps + s * drift > 0})
+    for f in options:
+        try:
+            est = measure_flicker(row_profiles, frame_times, f, frame_interval, exposure_s,
+                                  check_light=True, flat_profile=flat_profile)
+        except MeasurementRefused:
+            continue
+        est.notes.insert(0, f"--light-hz auto took {f:.4g} Hz: neither 100 nor 120 Hz fits the band drift "
+                            f"({drift:.3g} Hz modulo the frame rate); {f:.4g} Hz is the lowest frequency that "
+                            f"does with a readout under the frame interval, and {fps:.5g} Hz more or less fit too "
+                            "(an LED driver's own rate?): give --light-hz if you know it")
+        return est
+    raise refusal("--light-hz auto: no light frequency fits the band drift; give --light-hz", None)

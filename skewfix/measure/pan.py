@@ -51,9 +51,10 @@ _MIN_BAND_SCORE = 0.5  # correlation of a band with the middle band
 _MIN_BANDS = 5
 _SIGNIFICANCE = 3.0   # slope / its sigma needed to state a line order
 # Relative floor on the uncertainty for what the frame-to-frame scatter cannot
-# show (compression, the tracker's proxy, optics): the size of the errors in
-# our own synthetic runs (scripts/bench_measure.py), not a published value.
-_SYSTEMATIC_FRACTION = 0.003
+# show (compression, the tracker's proxy, optics): set from the coverage table of
+# scripts/bench_measure.py --coverage (30 random synthetic pans: median error about
+# 0.08 %, so 0.15 % puts about two thirds within one sigma), not a published value.
+_SYSTEMATIC_FRACTION = 0.0015
 
 
 # ----------------------------------------------------------------------------
@@ -423,7 +424,7 @@ def measure_pan(path: str, analysis=None, fps=None) -> ReadoutEstimate:
 # ----------------------------------------------------------------------------
 # plot
 # ----------------------------------------------------------------------------
-def plot_pan(estimate: ReadoutEstimate, path) -> None:
+def plot_pan(estimate: ReadoutEstimate, path, refused: str | None = None) -> None:
     """PNG to check a pan measurement by eye: lean against speed with the fitted line,
     and the misfit against candidate readouts with the minimum marked."""
     from skewfix.measure.plots import draw_residual_curve, new_figure, save_png
@@ -446,6 +447,8 @@ def plot_pan(estimate: ReadoutEstimate, path) -> None:
     ax.set_ylabel("lean (px per row)")
     ax.legend(loc="best", fontsize=8)
     draw_residual_curve(axes[1], estimate)
-    fig.suptitle(f"pan: readout {estimate.readout_s * 1e3:.3f} ± {estimate.uncertainty_s * 1e3:.3f} ms, "
-                 f"{estimate.line_order}, {len(estimate.frames_used)} frames", fontsize=12)
+    from skewfix.measure.plots import mark_refused, title_for
+
+    fig.suptitle(title_for(estimate, refused), fontsize=12)
+    mark_refused(fig, refused)
     save_png(fig, path)

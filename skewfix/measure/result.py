@@ -120,3 +120,13 @@ class ReadoutEstimate:
             "lens_distortion": list(m.distortion) if m and m.distortion else None,
             "notes": list(self.notes),
         }
+
+
+def refusal(message: str, partial: ReadoutEstimate | None = None):
+    """A `MeasurementRefused` carrying what the method saw (``partial``: its best candidate and
+    diagnostics, for ``--plot``), so a refusal can still be drawn, marked as refused."""
+    from skewfix.errors import MeasurementRefused
+
+    exc = MeasurementRefused(message)
+    exc.partial = partial
+    return exc

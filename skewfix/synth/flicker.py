@@ -122,6 +122,26 @@ def light_mean(t0, exposure_s, light_hz, waveform="sine", depth=0.3, duty=0.5, p
     return (a - b) / exposure_s
 
 
+def wall_shading(width: int, height: int, amplitude: float, seed: int = 0) -> np.ndarray:
+    """Multiplicative shading of a plain wall, ``1 +- amplitude``: three smooth ripples with
+    wavelengths of 0.3 to 1.1 frame heights at random angles and phases, and a soft spot
+    (a Gaussian) of about a third of the height. Smooth, but no low-degree polynomial:
+    what a real wall and its lighting do at the scale of the flicker bands."""
+    rng = np.random.default_rng(1000 + int(seed))
+    yy = (np.arange(height, dtype=np.float64)[:, None] + 0.5) / height
+    xx = (np.arange(width, dtype=np.float64)[None, :] + 0.5) / height
+    field = np.zeros((height, width))
+    for _ in range(3):
+        wavelength = rng.uniform(0.3, 1.1)
+        angle = rng.uniform(-0.5, 0.5)  # mostly varying down the wall, as the bands do
+        field += np.cos(2 * np.pi * (yy * np.cos(angle) + xx * np.sin(angle)) / wavelength
+                        + rng.uniform(0, 2 * np.pi))
+    cy, cx = rng.uniform(0.2, 0.8), rng.uniform(0.2, 0.8) * width / height
+    field += 1.5 * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * 0.15 ** 2))
+    field /= np.max(np.abs(field))
+    return (1.0 + amplitude * field).astype(np.float32)
+
+
 def _prepare_texture(texture, width, height):
     import cv2
 
@@ -169,6 +189,7 @@ def render_flicker_clip(
     seed: int = 0,
     mains_hz: float | None = None,
     codec_options: dict | None = None,
+    shading: float = 0.0,
 ) -> FlickerTruth:
     """Render a rolling-shutter clip of a wall under a flickering light; H.264.
 
@@ -194,6 +215,9 @@ def render_flicker_clip(
     gamma       exponent of the transfer curve applied to linear light
     preset      libx264 preset; ``codec_options`` adds further libx264 options
     seed        seed of the noise and shake
+    shading     relative amplitude of the wall's own faint, smooth shading (e.g. 0.01): a
+                few broad ripples and a soft spot at the scale of the bands, not a
+                polynomial (`wall_shading`); it moves with the wall
 
     Returns a FlickerTruth. Pictures only: a real flickering/strobing test light
     can trigger photosensitive seizures, and mains-powered rigs are for
@@ -242,6 +266,8 @@ def render_flicker_clip(
         wall = np.full((height, width), 0.7, dtype=np.float32)
     else:
         wall = _prepare_texture(texture, width, height)
+    if shading > 0:
+        wall = wall * wall_shading(width, height, shading, seed)
     if gradient:
         # a lamp up and to the left: brighter there, smooth falloff
         wall = wall / (1.0 + 0.5 * ((xx + 0.7) ** 2 + (yy + 0.6) ** 2))

@@ -1,0 +1,150 @@
+"""The motion method: the readout from a clip's own motion."""
+
+from fractions import Fraction
+
+import pytest
+
+from skewfix.errors import MeasurementRefused
+from skewfix.measure.motion_fit import measure_motion
+from skewfix.pipeline import analyse
+from skewfix.synth.paths import SteadyPan, Still, WhipPan  # noqa: F401
+from skewfix.synth.shutter import render_clip
+
+W, H = 480, 270
+
+
+def clip(tmp_path, panorama, camera, readout, order="top-down", rate=Fraction(25), n=24):
+    path = tmp_path / "c.mp4"
+    render_clip(path, panorama, camera, W, H, rate, n, readout, order, origin=(W * 0.8, panorama.shape[0] / 2))
+    return analyse(str(path))
+
+
+def whip(rate):
+    return WhipPan(peak_px_s=90 * float(rate), centre_s=12 / float(rate), duration_s=16 / float(rate))
+
+
+@pytest.mark.parametrize("order", ["top-down", "bottom-up"])
+def test_whip_pan_reveals_readout_and_order(tmp_path, panorama, order):
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020, order))
+    assert est.readout_s == pytest.approx(0.020, rel=0.05)  # target: within 5 %
+    assert est.line_order == order
+    assert 0 < est.uncertainty_s < 0.002
+
+
+def test_global_shutter_reports_zero(tmp_path, panorama):
+    # A global shutter reads every row at one instant (fact of the trade): readout 0.
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.0))
+    assert est.readout_s < 0.001
+    assert est.line_order == "undetermined"
+
+
+@pytest.mark.parametrize("camera", [SteadyPan(vx_px_s=900.0), Still()])
+def test_steady_motion_is_refused(tmp_path, panorama, camera):
+    # Constant velocity shifts all rows alike whatever the readout (common practice).
+    with pytest.raises(MeasurementRefused, match="too steady"):
+        measure_motion(clip(tmp_path, panorama, camera, 0.02))
+
+
+def test_measure_saves_the_solved_motion(tmp_path, panorama):
+    from skewfix.cli import main
+    from skewfix.motionfile import load_motion
+
+    path = tmp_path / "whip.mp4"
+    render_clip(path, panorama, whip(25), W, H, Fraction(25), 24, 0.020, origin=(W * 0.8, panorama.shape[0] / 2))
+    motion = tmp_path / "whip.motion.json"
+    assert main(["measure", str(path), "--method", "motion", "--save-motion", str(motion), "-q"]) == 0
+    model, clock, reference_line, meta = load_motion(motion)
+    assert clock.readout == pytest.approx(0.020, rel=0.05)
+    assert len(clock.frame_times) == 24 and reference_line == "middle"
+
+
+def test_lk_measures_the_displacement_at_its_window_gradient_centroid():
+    # OpenCV's pyramidal Lucas-Kanade (Lucas & Kanade, 1981) as the reference: a picture whose
+    # rows shift by a different amount each (a change of lean between frames, as a rolling
+    # shutter makes while the speed changes) is tracked at a point whose window holds vertical
+    # edges only in its upper rows; the displacement found is the one at the window's
+    # gradient centroid (rows_at_evidence), not at the point
+    import cv2
+    import numpy as np
+
+    from skewfix.measure.motion_fit import _window_centroid_offsets
+
+    h, w, y0, x0 = 120, 160, 60.0, 80.0
+    rng = np.random.default_rng(4)
+    cols = np.repeat(rng.uniform(40, 215, w // 4), 4)
+    img = np.tile(cols, (h, 1)).astype(np.float32)
+    img[int(y0):] = 128.0  # no detail from the point's row down
+    img = cv2.GaussianBlur(img, (0, 0), 1.2)
+    d0, lean = 2.0, 0.05  # px, and px per row
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    moved = cv2.remap(img, xx - (d0 + lean * (yy - y0)), yy, cv2.INTER_CUBIC, borderMode=cv2.BORDER_REFLECT)
+    a, b = img.astype(np.uint8), moved.astype(np.uint8)
+    pt = np.array([[x0, y0]], np.float32)
+    found, st, _ = cv2.calcOpticalFlowPyrLK(a, b, pt, None, winSize=(15, 15), maxLevel=0,
+                                            criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 50, 1e-4))
+    assert st[0, 0] == 1
+    measured = float(found[0, 0] - x0)
+    offset = float(_window_centroid_offsets(a, pt.astype(np.float64), np.array([1.0, 0.0]), 15)[0])
+    assert -6 < offset < -2  # the edges are above the point
+    assert measured == pytest.approx(d0 + lean * offset, abs=0.03)
+    assert abs(measured - d0) > 0.1  # the point's own row would be wrong
+
+
+def test_line_order_note_catches_the_wrong_order(tmp_path, panorama):
+    from skewfix.measure.motion_fit import line_order_note
+    from skewfix.rowclock import RowClock
+
+    analysis = clip(tmp_path, panorama, whip(25), 0.020, "top-down")
+    right = RowClock(analysis.frame_times, H, 0.020, "top-down")
+    wrong = RowClock(analysis.frame_times, H, 0.020, "bottom-up")
+    assert line_order_note(analysis.pairs, right, W) is None
+    note = line_order_note(analysis.pairs, wrong, W)
+    assert note and "--line-order top-down" in note and "\n" not in note
+
+
+def test_line_order_note_is_silent_when_the_motion_cannot_tell(tmp_path, panorama):
+    # constant velocity leans every frame alike, whatever the order (common practice)
+    from skewfix.measure.motion_fit import line_order_note
+    from skewfix.rowclock import RowClock
+
+    analysis = clip(tmp_path, panorama, SteadyPan(vx_px_s=900.0), 0.020)
+    for order in ("top-down", "bottom-up"):
+        assert line_order_note(analysis.pairs, RowClock(analysis.frame_times, H, 0.020, order), W) is None
+
+
+def test_the_plot_marks_the_result_at_the_lowest_point(tmp_path, panorama):
+    import numpy as np
+
+    from skewfix.measure.plots import plot_residual_curve
+
+    seen = []
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020), progress=lambda *a: seen.append(a))
+    # the search reports its progress too, fit by fit, up to its announced total
+    search = [a for a in seen if "search" in a[0]]
+    assert search and search[-1][1] == search[-1][2] and len(search) == search[-1][2]
+    d = est.diagnostics
+    cand, res = np.asarray(d["candidates_ms"]), np.asarray(d["residuals"])
+    # the result is a parabola's vertex; the sampled candidates on either side of it fit worse
+    others = np.abs(cand - d["signed_best_ms"]) > 1e-9
+    nearest = np.argsort(np.abs(cand[others] - d["signed_best_ms"]))[:2]
+    assert np.all(res[others][nearest] > res[~others].min())
+    assert abs(cand[others][np.argmin(res[others])] - d["signed_best_ms"]) <= d["finest_step_ms"] + 1e-9
+    out = tmp_path / "motion.png"
+    plot_residual_curve(est, out)
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)
+
+
+def test_fix_notes_a_wrong_line_order(tmp_path, panorama):
+    # a top-down clip fixed as bottom-up: the rows are timed backwards (the row clock's
+    # definition, skewfix/rowclock.py), so the fix doubles the lean; fix says so in one note
+    from skewfix.pipeline import FixOptions, fix_clip
+
+    path = tmp_path / "whip.mp4"
+    render_clip(path, panorama, whip(25), W, H, Fraction(25), 24, 0.020, origin=(W * 0.8, panorama.shape[0] / 2))
+    notes = {}
+    for order in ("top-down", "bottom-up"):
+        result = fix_clip(str(path), str(tmp_path / f"{order}.mp4"),
+                          FixOptions(readout=0.020, line_order=order, preset="ultrafast"))
+        notes[order] = [n for n in result.notes if "line order looks wrong" in n]
+    assert notes["top-down"] == []
+    assert len(notes["bottom-up"]) == 1 and "--line-order top-down" in notes["bottom-up"][0]
