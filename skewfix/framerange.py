@@ -39,15 +39,19 @@ VIDEO_FIRST_NUMBER = 1
 
 
 def first_frame_number(info) -> int:
-    """The number of a clip's first frame: a sequence's first file number, else 1."""
-    return int(info.first_number) if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
-
-
-def first_delivered_number(info) -> int:
-    """The number of the first frame a source delivers (with ``--frames``, the range's first)."""
+    """The number of the first frame a source delivers: a sequence's first file number (of the
+    files read), else 1 for a video, or the number of the first frame ``--frames`` kept."""
     if info.is_sequence and info.first_number is not None:
         return int(info.first_number)
-    return VIDEO_FIRST_NUMBER + info.first_index
+    return VIDEO_FIRST_NUMBER + int(getattr(info, "first_index", 0) or 0)
+
+
+first_delivered_number = first_frame_number  # the same number, under the name the range code reads best with
+
+
+def _clip_first_number(info) -> int:
+    """The number of the whole clip's first frame (whatever part ``--frames`` keeps)."""
+    return int(info.first_number) if info.is_sequence and info.first_number is not None else VIDEO_FIRST_NUMBER
 
 
 def nominal_rate(rate: Fraction) -> int:
@@ -133,7 +137,7 @@ class FrameRange:
     def _position(self, end: str, info, start_frames: int) -> int:
         """0-based position in the clip of the frame ``end`` names."""
         if _NUMBER.match(end):
-            base = first_frame_number(info)
+            base = _clip_first_number(info)
             number = int(end)
             if number < base:
                 raise InputError(f"{info.path}: {OPTION} {self.text}: frame {number} comes before the "
@@ -164,7 +168,7 @@ class FrameRange:
 
 def past_the_end(info, frame_count: int, asked: FrameRange, last: int) -> str:
     """The message for a range that asks for frames the clip does not have."""
-    base = first_frame_number(info)
+    base = _clip_first_number(info)
     return (f"{info.path}: has {frame_count} frames ({base} to {base + frame_count - 1}); "
             f"{OPTION} {asked.text} asks for frames up to {base + last}")
 

@@ -19,7 +19,7 @@ One JSON object (UTF-8). Times are seconds, lengths pixels of the stored frame
         "width": 1920, "height": 1080,      # stored frame size
         "frame_rate": "24000/1001",         # exact rational, or null if unknown
         "frame_count": 120,
-        "first_number": 1001                # first file number of a sequence, or null
+        "first_number": 1001                # number of the first frame (a sequence: its file number)
       },
       "timing": {
         "readout_s": 0.0185,                # first-to-last-row time (0 = global shutter)
@@ -73,7 +73,8 @@ A world direction ``d`` is seen at time ``t`` at the pixel ``p`` with::
 
 Frame positions in the file (``first_frame``, ``last_frame``, ``cuts_after``,
 ``unmeasured_after``) count from 0 at the first frame; ``source.first_number``
-is the first frame's number (null: a video, whose frames are numbered from 1).
+is the first frame's number (a video's frames are numbered from 1; with ``--frames``
+it is the part's first frame; files that have null here are read as 1).
 
 The CSV has one row per frame: ``frame`` (the frame number, as the README's
 "Frame numbers" states: a sequence's file number, a video's counted from 1), ``time_s`` (frame start),
@@ -98,6 +99,7 @@ from pathlib import Path
 import numpy as np
 
 from skewfix.decode import VideoInfo
+from skewfix.framerange import first_frame_number
 from skewfix.errors import InputError, SkewfixError, UsageProblem
 from skewfix.files import write_whole
 from skewfix.motion import MotionModel, MotionSegment
@@ -148,7 +150,7 @@ def motion_document(model: MotionModel, clock: RowClock, reference_line: str, in
             "height": int(model.height),
             "frame_rate": f"{info.rate.numerator}/{info.rate.denominator}" if info.rate else None,
             "frame_count": int(len(clock.frame_times)),
-            "first_number": int(info.first_number) if info.is_sequence and info.first_number is not None else None,
+            "first_number": first_frame_number(info),
         },
         "timing": {
             "readout_s": float(clock.readout),

@@ -251,3 +251,18 @@ def test_measure_frames_measures_only_that_part(truth_clip, tmp_path, capsys):
     assert result["frames_used"] and set(result["frames_used"]) <= set(range(4, 20))  # the clip's numbers
     # the motion method on a whip pan: within 15 % of the rendered readout (common practice)
     assert result["readout_ms"] == pytest.approx(readout * 1e3, rel=0.15)
+
+
+def test_motion_of_a_part_carries_the_part_s_frame_numbers(lossless_with_sound, tmp_path, capsys):
+    # README, "Frame numbers": the motion file and its table name frames as the clip does,
+    # so a part written with --frames 4-11 starts at frame 4, not at 1
+    import csv
+
+    from skewfix.motionfile import load_motion
+
+    code, err = run(capsys, "fix", lossless_with_sound, tmp_path / "p.mkv", "--readout", "10ms", "--frames", "4-11",
+                    "--save-motion", tmp_path / "m.json", "--save-motion-csv", tmp_path / "m.csv", "--quiet")
+    assert code == 0, err
+    *_, meta = load_motion(tmp_path / "m.json")
+    assert meta["first_number"] == 4 and meta["frame_count"] == 8
+    assert [int(r["frame"]) for r in csv.DictReader((tmp_path / "m.csv").open())] == list(range(4, 12))
