@@ -287,6 +287,7 @@ FIRST_WINDOW = 8  # frames in the first fitted window (later ones double up to t
 # 16 keeps a 240-frame 1080p fix within a few per cent of a 60-frame one (a 60-frame clip
 # already reaches the steady look-ahead), for a few per cent more fitting than 32.
 MAX_WINDOW = 16
+NOT_CHECKED = object()  # a streamed fix's line order before the first frames were looked at
 DECIDE_FRAMES = 24  # frames whose tracks choose the motion model of a streamed clip
 MARGIN = 4  # frames of context fitted on each side of a window (the spline needs a frame or two)
 
@@ -330,6 +331,7 @@ class StreamingWarper(FrameWarper):
         self.fit_settings = fit or FitSettings()
         self.model_request, self.lens = model_request, lens or LensSpec()
         self.choice: ModelChoice | None = None
+        self.line_order_note = NOT_CHECKED  # then a note, or None (see `_check_line_order`)
         if model_request == "similarity" or self.fit_settings.kind is not None or self.fit_settings.model == "translation":
             kind = self.fit_settings.kind_for(info.width, info.height)
             reason = ("asked for (translation only)" if self.fit_settings.model == "translation" and
@@ -416,7 +418,7 @@ class StreamingWarper(FrameWarper):
             while True:
                 with self._cond:
                     need = self._fitted_until + self.window_from(self._fitted_until) + self.margin
-                    if self.choice is None:
+                    if self.choice is None or self.line_order_note is NOT_CHECKED:
                         need = max(need, self.decide_frames)
                     while not self._closed and self._observed < need:
                         self._cond.wait()
@@ -425,6 +427,8 @@ class StreamingWarper(FrameWarper):
                         return
                 if self.choice is None:
                     self._choose_model(observed)
+                if self.line_order_note is NOT_CHECKED:
+                    self._check_line_order(observed)
                 self._fit_next(observed)
         except BaseException as exc:  # noqa: BLE001 - reported to the warp thread
             with self._cond:
@@ -435,18 +439,29 @@ class StreamingWarper(FrameWarper):
         """Pick the motion model from the first frames' tracks (see the class docstring)."""
         from skewfix.errors import MeasurementRefused
 
-        upto = min(observed, self.decide_frames)  # always the same frames, however the threads ran
-        with self._cond:
-            times = np.asarray(self.frame_times[:upto])
-            pairs = [p for k, p in self._pairs.items() if k < upto - 1]
-        clock = RowClock(times, self.info.height, self.readout, self.line_order)
+        pairs, clock = self._first_frames(observed)
         try:
             self.choice = choose_model(self.model_request, pairs, clock, self.info.width, self.lens,
                                        self.fit_settings)
         except MeasurementRefused as exc:
             raise MeasurementRefused(f"{self.info.path}: {exc}") from None
         self.fit_settings = replace(self.fit_settings, kind=self.choice.kind)
-        self.line_order_note = line_order_note(pairs, clock, self.info.width, self.fit_settings)  # measure/motion_fit
+
+    def _first_frames(self, observed: int):
+        """The tracks and row clock of the first `decide_frames` frames (always the same frames,
+        however the threads ran)."""
+        upto = min(observed, self.decide_frames)
+        with self._cond:
+            times = np.asarray(self.frame_times[:upto])
+            pairs = [p for k, p in self._pairs.items() if k < upto - 1]
+        return pairs, RowClock(times, self.info.height, self.readout, self.line_order)
+
+    def _check_line_order(self, observed: int) -> None:
+        """Doubt the line order given when the first frames' motion fits the other one clearly
+        better (`skewfix.measure.motion_fit.line_order_note`); None when it cannot tell."""
+        pairs, clock = self._first_frames(observed)
+        self.line_order_note = line_order_note(pairs, clock, self.info.width,
+                                               replace(self.fit_settings, kind=self.choice.kind))
 
     def _knot_settings(self, times: np.ndarray) -> FitSettings:
         """The fit settings with the clip's one knot grid, fixed by the first window."""
@@ -873,6 +888,7 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     notes.extend(model.warnings)
     order_note = line_order_note(analysis.pairs, clock, info.width, replace(options.fit or FitSettings(), kind=model.kind)) \
         if whole_clip else getattr(warper, "line_order_note", None)
+    order_note = None if order_note is NOT_CHECKED else order_note
     notes.extend([order_note] if order_note else [])  # the line order doubted by the clip's motion
     if model.cuts:
         notes.append(f"{len(model.cuts)} cut(s) found after frame(s) {', '.join(map(str, model.cuts[:10]))}; "

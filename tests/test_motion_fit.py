@@ -142,7 +142,8 @@ def test_the_plot_marks_the_result_at_the_lowest_point(tmp_path, panorama):
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)
 
 
-def test_fix_notes_a_wrong_line_order(tmp_path, panorama):
+@pytest.mark.parametrize("model", ["auto", "similarity"])
+def test_fix_notes_a_wrong_line_order(tmp_path, panorama, model):
     # a top-down clip fixed as bottom-up: the rows are timed backwards (the row clock's
     # definition, skewfix/rowclock.py), so the fix doubles the lean; fix says so in one note
     from skewfix.pipeline import FixOptions, fix_clip
@@ -151,7 +152,7 @@ def test_fix_notes_a_wrong_line_order(tmp_path, panorama):
     notes = {}
     for order in ("top-down", "bottom-up"):
         result = fix_clip(str(path), str(tmp_path / f"{order}.mp4"),
-                          FixOptions(readout=0.020, line_order=order, preset="ultrafast"))
+                          FixOptions(readout=0.020, line_order=order, preset="ultrafast", model=model))
         notes[order] = [n for n in result.notes if "line order looks wrong" in n]
     assert notes["top-down"] == []
     assert len(notes["bottom-up"]) == 1 and "--line-order top-down" in notes["bottom-up"][0]
