@@ -430,3 +430,17 @@ def test_shaded_wall_within_0_2_percent(tmp_path, fps, flat):
     assert abs(est.readout_s - truth.readout_s) < 3 * est.uncertainty_s
     if flat:
         assert any("flat field was divided out" in n for n in est.notes)
+
+
+def test_a_readout_too_uncertain_to_report_still_carries_the_fit_for_the_plot(drifting_wall, monkeypatch):
+    # with the largest reportable uncertainty set below what any fit reaches, the clean wall is
+    # refused as "uncertain"; the refusal keeps the fit it saw (common practice: a refused
+    # measurement is when the plot is most needed), and that fit is the wall's true readout
+    import skewfix.measure.flicker as flicker
+
+    truth, profiles, times = drifting_wall
+    monkeypatch.setattr(flicker, "_MAX_REL_SIGMA", 1e-9)
+    with pytest.raises(MeasurementRefused, match="uncertain by") as info:
+        measure_flicker(profiles, times, 100.0, truth.frame_interval)
+    partial = info.value.partial
+    assert partial is not None and partial.readout_s == pytest.approx(truth.readout_s, rel=0.01)

@@ -601,11 +601,31 @@ def measure_flicker(
         else:
             why = ("the bands stand still and the wall's own shading is not smooth "
                    "(texture?), so the two cannot be told apart")
-        raise MeasurementRefused(
+        too_uncertain = (
             f"flicker bands found but the readout is uncertain by "
             f"{sigma_kappa / kappa:.0%}: {why}; shoot at a fast shutter (1/1000 s or "
             "faster) on a plain, evenly lit wall, at a frame rate where f/fps is not a "
             "whole number so the bands drift")
+        try:  # the fit as far as it got, for --plot (marked refused)
+            partial = _flicker_estimate(best, cands, total, t, f, frame_interval, height, kappas, kappa_max,
+                                        common, flat_profile, exposure_s, notes, sigma_kappa)[0]
+        except Exception:  # noqa: BLE001 - a fit this poor may not describe itself; refuse all the same
+            partial = None
+        raise refusal(too_uncertain, partial)
+    estimate, verdict, drift_hz = _flicker_estimate(best, cands, total, t, f, frame_interval, height, kappas,
+                                                    kappa_max, common, flat_profile, exposure_s, notes, sigma_kappa)
+    if check_light and verdict:
+        exc = refusal(verdict, estimate)
+        exc.drift_hz = drift_hz
+        raise exc
+    return estimate
+
+
+def _flicker_estimate(best, cands, total, t, f, frame_interval, height, kappas, kappa_max, common, flat_profile,
+                      exposure_s, notes, sigma_kappa):
+    """The `ReadoutEstimate` of the chosen fit (line order, notes, plot diagnostics), the light
+    frequency's verdict (a refusal message or None) and the drift it was judged on."""
+    kappa = best["kappa"]
     readout = kappa / f
     sigma_readout = sigma_kappa / f
     if kappa > kappa_max - 0.5 * _KAPPA_STEP:
@@ -717,11 +737,7 @@ def measure_flicker(
         diagnostics=diagnostics,
         notes=notes,
     )
-    if check_light and verdict:
-        exc = refusal(verdict, estimate)
-        exc.drift_hz = drift_hz
-        raise exc
-    return estimate
+    return estimate, verdict, drift_hz
 
 
 def _global_shutter_hint(q, theta, sigma2, m):
