@@ -61,8 +61,11 @@ def preview_command(
     focal_length: Optional[str] = focal_option(),
     lens_distortion: Optional[str] = distortion_option(),
 ):
-    """Write a still of one frame as shot and corrected (or corrected with each of several
-    readouts), with straight reference lines over every panel."""
+    """Write a still of one frame as shot and corrected, with straight reference lines.
+
+    Given several readouts (--readout 12ms,16ms,20ms), the still shows one corrected
+    panel per readout beside the frame as shot, so a readout can be chosen by eye.
+    """
     from skewfix.cameras import plan_readout
     from skewfix.files import write_whole
     from skewfix.framerange import delivered_position, first_delivered_number, parse_frame, parse_frame_range
