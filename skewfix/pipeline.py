@@ -825,6 +825,8 @@ def _fix_source(source, input_path, output_path, options: FixOptions, progress, 
     from skewfix.encode import DeferredSink, VideoSink
 
     probe_info = source.info
+    if progress is not None and readout_resolver is not None and hasattr(readout_resolver, "progress"):
+        readout_resolver.progress = progress  # a readout measured here shows its search too
     if readout_resolver is None:
         try:
             check_readout_fits(options.readout, probe_info.frame_interval)

@@ -293,15 +293,19 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
 
 
 def auto_readout_resolver(line_order: str | None, progress=_quiet):
-    """For ``fix --readout auto``: measure from the clip being fixed."""
+    """For ``fix --readout auto``: measure from the clip being fixed.
+
+    ``resolve.progress`` may be replaced once a progress display exists (fix sets it, so the
+    search shows its fits as ``measure`` does)."""
 
     def resolve(analysis, kind=None):
-        est = measure_motion(analysis, line_order, kind=kind, progress=progress)
+        est = measure_motion(analysis, line_order, kind=kind, progress=resolve.progress)
         order = est.line_order if est.line_order != "undetermined" else (line_order or "top-down")
         origin = (f"measured from this clip's motion: {est.readout_s * 1e3:.2f} ± "
                   f"{est.uncertainty_s * 1e3:.2f} ms")
         return est.readout_s, order, origin
 
+    resolve.progress = progress
     return resolve
 
 
