@@ -178,9 +178,16 @@ class PairTracker:
         s = self.settings
         (dx, dy), seed_response = _phase(prev.quarter, cur.quarter)
         (dx, dy), overlap_match = unaliased_shift(prev.quarter, cur.quarter, (dx, dy))
+
+        def same_picture() -> bool:  # the overlap's correlation, worked out only when a pair is in doubt
+            nonlocal overlap_match
+            if overlap_match is None:
+                overlap_match = overlap_correlation(prev.quarter, cur.quarter, (dx, dy))[0]
+            return overlap_match >= s.same_picture
+
         seed = (dx * prev.quarter_scale[0], dy * prev.quarter_scale[1])
         hist_distance = cv2.compareHist(prev.histogram, cur.histogram, cv2.HISTCMP_BHATTACHARYYA)
-        if overlap_match < s.same_picture and self._looks_like_cut(prev, cur, hist_distance, seed_response):
+        if self._looks_like_cut(prev, cur, hist_distance, seed_response) and not same_picture():
             return self._unmeasured(k, cut=True)
         p0, p1, ids = self._track(prev, cur, seed, prev.threshold, s.per_cell, s.window)
         if len(p0) < s.retry_below:
@@ -196,7 +203,7 @@ class PairTracker:
         if has_detail:
             (gx, gy), response = _phase(prev.half, cur.half)
             (gx, gy), _ = unaliased_shift(prev.half, cur.half, (gx, gy))
-            if response >= s.peak_response or overlap_match >= s.same_picture:
+            if response >= s.peak_response or same_picture():
                 shift = whole_frame_shift(prev.proxy, cur.proxy, (gx * prev.half_scale[0], gy * prev.half_scale[1]))
         if len(p0) >= s.min_tracks and (shift is None or np.hypot(*(np.median(p1 - p0, 0) - shift)) < s.agree):
             return self._tracks(k, p0, p1, ids, hist_distance, seed_response)
@@ -565,7 +572,8 @@ def unaliased_shift(prev: np.ndarray, cur: np.ndarray, shift, search: int = 3) -
     tried too, and the candidate whose overlaps correlate best
     (`overlap_correlation`, best within ``search`` px of each candidate: a peak
     found on a small overlap is often a few px off) is kept.
-    Returns (shift, its overlap correlation).
+    Returns (shift, its overlap correlation), the correlation None when there was
+    no alias to weigh (it is not worked out then).
     """
     h, w = prev.shape[:2]
     xs, ys = [float(shift[0])], [float(shift[1])]
@@ -573,8 +581,9 @@ def unaliased_shift(prev: np.ndarray, cur: np.ndarray, shift, search: int = 3) -
         xs.append(xs[0] - np.sign(xs[0]) * w)
     if abs(shift[1]) > h / 4:
         ys.append(ys[0] - np.sign(ys[0]) * h)
-    reach = search if len(xs) + len(ys) > 2 else 0
-    scored = [overlap_correlation(prev, cur, (x, y), reach) for x in xs for y in ys]
+    if len(xs) == len(ys) == 1:
+        return (xs[0], ys[0]), None
+    scored = [overlap_correlation(prev, cur, (x, y), search) for x in xs for y in ys]
     best, chosen = max(scored, key=lambda item: item[0])
     return chosen, best
 

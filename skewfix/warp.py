@@ -330,8 +330,8 @@ def warp_plane(plane: np.ndarray, wm: "WarpMap", subsample=(1, 1), border: str =
             continue
         if maps is None:
             maps = wm.full(w, h, subsample, pool=pool)
-        cv2.remap(plane, maps[0][r0:r1, c0:c1], maps[1][r0:r1, c0:c1], interp, dst=out[r0:r1, c0:c1],
-                  borderMode=mode, borderValue=fill)
+        remap_plane(plane, maps[0][r0:r1, c0:c1], maps[1][r0:r1, c0:c1], border, fill, interpolation,
+                    dst=out[r0:r1, c0:c1])
     if maps is not None and pool is not None:
         pool.give(maps[0].base, maps[1].base)
     return out

@@ -17,7 +17,6 @@ mattes are numbered like the output (`skewfix.sequence.first_frame_number`).
 from __future__ import annotations
 
 import os
-import tempfile
 from dataclasses import replace
 from pathlib import Path
 
@@ -48,24 +47,11 @@ def decoded_frame_at(path: str, fps, index: int, frames=None):
     raise InputError(f"{path}: has no frame {index}")
 
 
-def frame_index(path: str, info, n_frames: int, number: int | None) -> int:
-    """The position (from 0) of frame ``number`` (README: frame numbers; None: the first
-    frame) in a clip of ``n_frames`` frames; an `InputError` naming the numbers there are."""
-    first = first_frame_number(info)
-    index = 0 if number is None else number - first
-    if not 0 <= index < n_frames:
-        raise InputError(f"{path}: has frames {first} to {first + n_frames - 1}; there is no frame {number}")
-    return index
-
-
 def still_png(before_rgb: np.ndarray, after_rgb: np.ndarray, labels=("as shot", "corrected")) -> bytes:
-    """The before/after panel of `skewfix.preview.before_after` as PNG bytes."""
-    from skewfix.preview import before_after
+    """The before/after panel (`skewfix.preview.side_by_side`) as PNG bytes."""
+    from skewfix.preview import png_bytes, side_by_side
 
-    with tempfile.TemporaryDirectory(prefix="skewfix-still-") as folder:
-        path = Path(folder) / "still.png"
-        before_after(before_rgb, after_rgb, str(path), labels)
-        return path.read_bytes()
+    return png_bytes(side_by_side([before_rgb, after_rgb], labels))
 
 
 def check_distinct_outputs(input_path: str, paths: dict[str, str | None]) -> None:
