@@ -46,7 +46,6 @@ def first_frame_number(info) -> int:
     return VIDEO_FIRST_NUMBER + int(getattr(info, "first_index", 0) or 0)
 
 
-first_delivered_number = first_frame_number  # the same number, under the name the range code reads best with
 
 
 def _clip_first_number(info) -> int:
@@ -177,7 +176,7 @@ def delivered_position(text: str, info, option: str = "--frame") -> int:
     """Where, among the frames a source delivers (0 = the first), the frame ``text`` names
     (a frame number in the README's numbering, or a timecode)."""
     if _NUMBER.match(text):
-        return int(text) - first_delivered_number(info)
+        return int(text) - first_frame_number(info)
     start = timecode_to_frames(info.start_timecode, info.rate, "the clip's start timecode") \
         if info.start_timecode else 0
     return timecode_to_frames(text, info.rate, option) - start - info.first_index

@@ -98,9 +98,9 @@ def fix_command(
         typer.echo(f"note: {note}", err=True)
     part = ""
     if options.frames is not None:
-        from skewfix.framerange import first_delivered_number
+        from skewfix.framerange import first_frame_number
 
-        first = first_delivered_number(result.info)
+        first = first_frame_number(result.info)
         part = f" (frames {first} to {first + result.frames_written - 1} of {input})"
     say(f"wrote {result.frames_written} frames to {result.output}{part}")
     for line in written:

@@ -18,7 +18,7 @@ from skewfix.cli.options import (choice, distortion_option, focal_option, frames
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import MeasurementRefused, UsageProblem
-from skewfix.framerange import first_delivered_number, parse_frame_range
+from skewfix.framerange import first_frame_number, parse_frame_range
 from skewfix.rowclock import clip_frame_interval, parse_duration, parse_rate
 
 METHODS = ("auto", "flicker", "pan", "motion")
@@ -384,7 +384,7 @@ def measure_command(
             say(f"wrote {plot_out} (marked as refused)")
         raise MeasurementRefused(message)
     # the frames used, in the clip's numbering (README: frame numbers), not as positions in the part read
-    first = first_delivered_number(measurer.info)
+    first = first_frame_number(measurer.info)
     estimate.frames_used = [first + int(k) for k in estimate.frames_used]
 
     if quiet:

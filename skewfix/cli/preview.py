@@ -68,7 +68,7 @@ def preview_command(
     """
     from skewfix.cameras import plan_readout
     from skewfix.files import write_whole
-    from skewfix.framerange import delivered_position, first_delivered_number, parse_frame, parse_frame_range
+    from skewfix.framerange import delivered_position, first_frame_number, parse_frame, parse_frame_range
     from skewfix.motionfile import check_new_file
     from skewfix.pipeline import FrameWarper, RenderSettings, analyse
     from skewfix.preview import png_bytes, side_by_side
@@ -92,7 +92,7 @@ def preview_command(
     with TerminalProgress(quiet) as progress:
         analysis = analyse(clip, rate, progress=progress, frames=selection)
     info = analysis.info
-    first = first_delivered_number(info)
+    first = first_frame_number(info)
     index = 0 if frame is None else delivered_position(frame, info)
     if not 0 <= index < analysis.n_frames:
         used = f"{first} to {first + analysis.n_frames - 1}"
