@@ -288,7 +288,7 @@ FIRST_WINDOW = 8  # frames in the first fitted window (later ones double up to t
 # already reaches the steady look-ahead), for a few per cent more fitting than 32.
 MAX_WINDOW = 16
 NOT_CHECKED = object()  # a streamed fix's line order before the first frames were looked at
-DECIDE_FRAMES = 24  # frames whose tracks choose the motion model of a streamed clip
+DECIDE_FRAMES = 24  # frames whose tracks choose the motion model of a streamed clip and check its line order
 MARGIN = 4  # frames of context fitted on each side of a window (the spline needs a frame or two)
 
 
