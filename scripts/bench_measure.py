@@ -284,9 +284,9 @@ def _coverage_flicker(workdir, i, rng):
         flat_truth = render_flicker_clip(Path(workdir) / f"cov_flicker_{i}_flat.mp4", **flat_kw)
         flat = decode_profiles(flat_truth.path)[0].mean(axis=0)
     profiles, times = decode_profiles(truth.path)
-    est = measure_flicker(profiles, times, light, truth.frame_interval, flat_profile=flat)
     what = f"{float(fps):.3f} fps {light:g} Hz{' still' if still else ''}{' flat' if flat is not None else ''}"
-    return readout, est, what
+    return _measured(readout, what, lambda: measure_flicker(profiles, times, light, truth.frame_interval,
+                                                            flat_profile=flat))
 
 
 def _coverage_pan(workdir, i, rng):
@@ -303,7 +303,17 @@ def _coverage_pan(workdir, i, rng):
     render_pan_clip(path, 480, 270, fps, 36 if both else 24, readout, speeds,
                     ["top-down", "bottom-up"][rng.integers(2)], tilt, 0.5 if both else 0.35, 0.12,
                     crf=int(rng.integers(14, 24)), noise_sigma=float(rng.uniform(0.002, 0.01)))
-    return readout, measure_pan(str(path)), f"{abs(speed):.0f} px/s{' both ways' if both else ''}"
+    return _measured(readout, f"{abs(speed):.0f} px/s{' both ways' if both else ''}", lambda: measure_pan(str(path)))
+
+
+def _measured(readout, what, measure):
+    """(truth, estimate, description); a refusal is raised again carrying the truth and the
+    description, so the table's log can show what was refused."""
+    try:
+        return readout, measure(), what
+    except SkewfixError as exc:
+        exc.truth, exc.what = readout, what
+        raise
 
 
 def _coverage_motion(workdir, i, rng):
@@ -331,7 +341,7 @@ def _coverage_motion(workdir, i, rng):
     render_clip(path, scene, camera, width, height, rate, n, readout, order,
                 noise_sigma=float(rng.uniform(0.002, 0.01)), crf=int(rng.integers(12, 22)),
                 origin=(width * 0.8 + 200, height * 0.75))
-    return readout, measure_motion(analyse(str(path))), what
+    return _measured(readout, what, lambda: measure_motion(analyse(str(path))))
 
 
 COVERAGE = {"flicker": _coverage_flicker, "pan": _coverage_pan, "motion": _coverage_motion}
@@ -355,7 +365,12 @@ def coverage(workdir, n_clips=30, only=None, seed=2026):
                 truth, est, what = make(workdir, i, rng)
             except SkewfixError as exc:
                 refused += 1
-                print(f"  {method} clip {i}: refused: {str(exc)[:120]}", file=sys.stderr)
+                partial = getattr(exc, "partial", None)
+                seen = (f", best {partial.readout_s * 1e3:.3f} ± {partial.uncertainty_s * 1e3:.3f}"
+                        if partial is not None else "")
+                print(f"  {method} clip {i} ({getattr(exc, 'what', '?')}): true "
+                      f"{getattr(exc, 'truth', float('nan')) * 1e3:.3f} ms{seen}, refused: {str(exc)[:120]}",
+                      file=sys.stderr)
                 continue
             z.append(abs(est.readout_s - truth) / est.uncertainty_s)
             errs.append(abs(est.readout_s - truth) / truth * 100)

@@ -256,7 +256,9 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
         raise refusal(f"{info.path}: {STEADY_MESSAGE}", estimate(float("inf"), "undetermined", notes))
 
     # delete-a-block jackknife over the pairs: the vertex again without each block, from six
-    # candidates around the full result (the curve's shape near the minimum barely changes)
+    # candidates around the full result (the curve's shape near the minimum barely changes);
+    # a block whose removal moves the minimum outside them is searched on the whole grid (not
+    # counted in the progress: it happens only then)
     local = best + finest_step * np.array([-3.0, -1.5, -0.5, 0.5, 1.5, 3.0])
     local = np.clip(local, lo, hi)
     estimates = []
@@ -264,6 +266,11 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
         keep = [p for p in pairs if p.k not in block]
         s_loc, _ = residual_curve(keep, times, info.height, info.width, local, kind=kind, tick=tick)
         b, c = parabola_vertex(local, s_loc)
+        if c > 0 and not local.min() <= b <= local.max():
+            # the minimum left the six candidates: a parabola through them cannot say where it
+            # went, so this block's minimum is found again on the whole search grid
+            s_all, _ = residual_curve(keep, times, info.height, info.width, cand, kind=kind)
+            b, c = _vertex(cand, s_all, lo, hi, finest_step)
         if c > 0:
             estimates.append(float(np.clip(b, lo - interval, hi + interval)))
     g = len(estimates)
@@ -272,14 +279,18 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
         uncertainty = JACKKNIFE_SCALE * float(np.sqrt((g - 1) / g * np.sum((e - e.mean()) ** 2)))
     else:
         uncertainty = float("inf")
-    if not np.isfinite(uncertainty) or uncertainty > 0.25 * interval:
+    # too vague to report: more than a quarter of the frame interval either way, or a tenth of
+    # it while not even telling a rolling shutter from a global one (zero within two sigma)
+    too_vague = uncertainty > 0.25 * interval or (uncertainty > 0.1 * interval and abs(best) < 2 * uncertainty)
+    if not np.isfinite(uncertainty) or too_vague:
         raise refusal(f"{info.path}: {STEADY_MESSAGE}", estimate(uncertainty, "undetermined", notes))
     readout = abs(best)
     if readout >= 0.97 * interval:
         raise refusal(
             f"{info.path}: the best fit lies at the edge of the search (a readout of the whole frame "
-            f"interval, {interval * 1e3:.2f} ms), so the motion does not pin the readout down; "
-            "measure with --method flicker or --method pan", estimate(uncertainty, "undetermined", notes)
+            f"interval, {interval * 1e3:.2f} ms): the motion is too steady to reveal the readout, as a "
+            "constant-speed pan is; measure with --method flicker or --method pan",
+            estimate(uncertainty, "undetermined", notes)
         )
     if line_order:
         order = line_order
