@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from skewfix.background import choose_background
+from skewfix.banded import BandedSystem, grouped_gram, scatter_vector
 from skewfix.models import MotionKind, make_kind
 from skewfix.rowclock import RowClock
 
@@ -295,22 +296,23 @@ def fit_motion(
     return model
 
 
-def load_solver():
-    """SciPy's sparse modules, imported on first use.
+def second_difference_penalty(n: int, scale: float = 1.0):
+    """Rows, columns and values of scale * D^T D, D the (n-2) x n second-difference matrix
+    (rows 1, -2, 1): the spline's roughness penalty, a band two wide."""
+    taps = np.array([1.0, -2.0, 1.0])
+    r = np.arange(max(n - 2, 0))
+    a, b = np.meshgrid(np.arange(3), np.arange(3), indexing="ij")
+    rows = (r[:, None, None] + a).ravel()
+    cols = (r[:, None, None] + b).ravel()
+    values = np.broadcast_to(scale * taps[:, None] * taps[None, :], (len(r), 3, 3)).ravel()
+    return rows, cols, values
 
-    Importing them costs about 0.2 s, a tenth of a short clip's transcode, so
-    the module does not import them at load time; the streaming fitter calls
-    this on its own thread while the first frames are still being decoded.
-    """
-    import scipy.sparse
-    import scipy.sparse.linalg
 
-    return scipy.sparse, scipy.sparse.linalg
-
-
-def _second_difference(n: int):
-    sp, _ = load_solver()
-    return sp.diags([1.0, -2.0, 1.0], [0, 1, 2], shape=(max(n - 2, 0), n), format="csr")
+def _apply_second_difference_penalty(x: np.ndarray) -> np.ndarray:
+    """D^T D x for the second-difference matrix D, without forming it."""
+    if len(x) < 3:
+        return np.zeros_like(x)
+    return np.convolve(np.diff(x, 2), [1.0, -2.0, 1.0])
 
 
 def knot_grid(clock: RowClock, first: int, last: int, settings: FitSettings) -> tuple[float, float, int]:
@@ -351,19 +353,21 @@ class _Track:
         return len(self.p0)
 
 
-def _spline_from_samples(times, values, seg: MotionSegment, penalty_one, weight: float = 1e-3) -> np.ndarray:
+def _spline_from_samples(times, values, seg: MotionSegment, weight: float = 1e-3) -> np.ndarray:
     """Penalised least-squares spline coefficients (n_curves, n_coef) through samples."""
-    sp, spla = load_solver()
     idx, w = bspline_basis(times, seg.knot_start, seg.knot_spacing, seg.n_coef)
-    rows = np.repeat(np.arange(len(times)), 4)
-    basis = sp.csr_matrix((w.ravel(), (rows, idx.ravel())), shape=(len(times), seg.n_coef))
-    lhs = (basis.T @ basis + penalty_one * weight + sp.identity(seg.n_coef) * 1e-9).tocsc()
-    return np.stack([spla.spsolve(lhs, basis.T @ v) for v in values])
+    system = BandedSystem(seg.n_coef, 3)
+    starts, blocks, _ = grouped_gram(w[:, None, :], idx[:, 0], np.ones(len(times)))
+    system.add_blocks(starts, blocks)
+    system.add_entries(*second_difference_penalty(seg.n_coef, weight))
+    system.add_diagonal(1e-9)
+    rhs = np.stack([np.bincount(idx.ravel(), weights=(w * np.asarray(v)[:, None]).ravel(), minlength=seg.n_coef)
+                    for v in values], axis=1)
+    return system.solve(rhs).T
 
 
 def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings: FitSettings, anchor=None,
                  prior=None):
-    sp, spla = load_solver()
     t_lo, spacing, n_coef = knot_grid(clock, first, last, settings)
     n_curves = kind.n_curves
     coef = np.zeros((n_curves, n_coef))
@@ -382,31 +386,38 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
     n_act = len(active)
     scales = kind.curve_scales()
 
+    # The unknowns in knot-major order (knot c of curve active[pos] is unknown c * n_act + pos),
+    # so every track's constraints and the penalty fall in a band (`skewfix.banded`).
+    n_unknowns = n_act * n_coef
+    s_lo = np.minimum(tracks.idx0[:, 0], tracks.idx1[:, 0])
+    off0, off1 = tracks.idx0 - s_lo[:, None], tracks.idx1 - s_lo[:, None]
+    span = int(max(off0.max(), off1.max())) + 1  # knots one track reaches, from its first
+    width = span * n_act
+    fixed = BandedSystem(n_unknowns, width - 1)
     # Penalty: second differences per curve, each curve scaled to pixels.
-    d2 = _second_difference(n_coef)
-    pen_one = (d2.T @ d2).tocsr()
-    penalty = sp.block_diag([pen_one * (settings.smoothness * scales[c] ** 2) for c in active], format="csr")
-    ridge = sp.identity(n_act * n_coef, format="csr") * 1e-9
+    pen_rows, pen_cols, pen_values = second_difference_penalty(n_coef)
+    pen_weight = np.array([settings.smoothness * scales[c] ** 2 for c in active])
+    for pos in range(n_act):
+        fixed.add_entries(pen_rows * n_act + pos, pen_cols * n_act + pos, pen_values * pen_weight[pos])
+    fixed.add_diagonal(1e-9)  # a ridge
     # Gauge: the world's own frame is free (a similarity's plane may be shifted, rotated and
     # scaled; a rotation's world may be turned), which leaves every image unchanged. Pin the
     # gauge curves at the shot's first frame (to zero, or to the values carried over).
     a_idx, a_w = bspline_basis(np.array([clock.frame_times[first]]), t_lo, spacing, n_coef)
-    anchor_rows, anchor_target = [], []
+    gauge_rows = []  # (unknowns, weights, target) of each pinned curve
     for pos, curve in enumerate(active):
         if curve in kind.gauge:
-            row = np.zeros(n_act * n_coef)
-            row[pos * n_coef + a_idx[0]] = a_w[0] * np.sqrt(1e3) * scales[curve]
-            anchor_rows.append(row)
-            anchor_target.append(anchor_values[curve] * np.sqrt(1e3) * scales[curve])
-    anchor_m = sp.csr_matrix(np.array(anchor_rows)) if anchor_rows else None
-    anchor_t = np.array(anchor_target)
+            index = a_idx[0] * n_act + pos
+            w_a = a_w[0] * np.sqrt(1e3) * scales[curve]
+            gauge_rows.append((index, w_a, anchor_values[curve] * np.sqrt(1e3) * scales[curve]))
+            fixed.add_entries(*np.meshgrid(index, index, indexing="ij"), np.outer(w_a, w_a))
 
     # the start for a non-linear model comes from the world's tracks only, not a subject's
     world_pairs = [PairObservations(p.k, p.p0[w > 0], p.p1[w > 0]) for p, w in zip(usable, background.weights)]
     guess = kind.initial_frame_values(world_pairs, clock, first, last, anchor_values)
     if guess is not None:
         times, values = guess
-        coef[:] = _spline_from_samples(times, values, seg, pen_one)
+        coef[:] = _spline_from_samples(times, values, seg)
         seg.coefficients = coef
 
     weights = w0.copy()
@@ -431,28 +442,25 @@ def _fit_segment(pairs, clock: RowClock, kind: MotionKind, first, last, settings
             weights *= tracks.strength
         weights[bad] = 0.0
 
-        # Sparse Jacobian: each residual touches 4 coefficients of each curve at t0 and at t1.
-        data, ri, ci = [], [], []
-        for j in range(m):
-            rows = np.repeat(np.arange(n) + j * n, 4)
-            for pos, curve in enumerate(active):
-                for idx, b, jac in ((tracks.idx0, tracks.b0, jac0), (tracks.idx1, tracks.b1, jac1)):
-                    ri.append(rows)
-                    ci.append((idx + pos * n_coef).ravel())
-                    data.append((b * jac[:, j, curve][:, None]).ravel())
-        jac = sp.csr_matrix((np.concatenate(data), (np.concatenate(ri), np.concatenate(ci))),
-                            shape=(m * n, n_act * n_coef))
-        wv = np.tile(weights, m)
-        r = resid.T.ravel()  # first components, then second, ...
-        jtw = jac.T.multiply(wv).tocsr()
-        c_flat = coef[active].ravel()
-        lhs = jtw @ jac + penalty + ridge
-        rhs = -(jtw @ r) - penalty @ c_flat - ridge @ c_flat
-        if anchor_m is not None:
-            lhs = lhs + (anchor_m.T @ anchor_m)
-            rhs = rhs - anchor_m.T @ (anchor_m @ c_flat - anchor_t)
-        step = spla.spsolve(lhs.tocsc(), rhs)
-        coef[active] = (c_flat + step).reshape(n_act, n_coef)
+        # each residual touches 4 knots of each curve at t0 and 4 at t1: its row of the
+        # Jacobian over the track's own run of knots, in the knot-major order
+        local = np.zeros((n, span, m, n_act))
+        rows = np.arange(n)
+        for q in range(4):
+            local[rows, off0[:, q]] += tracks.b0[:, q, None, None] * jac0[:, :, active]
+            local[rows, off1[:, q]] += tracks.b1[:, q, None, None] * jac1[:, :, active]
+        local = local.transpose(0, 2, 1, 3).reshape(n, m, width)
+        starts, blocks, vectors = grouped_gram(local, s_lo * n_act, weights, resid)
+        system = fixed.copy()
+        system.add_blocks(starts, blocks)
+        c_flat = coef[active].T.ravel()
+        smooth = np.stack([pen_weight[pos] * _apply_second_difference_penalty(coef[c])
+                           for pos, c in enumerate(active)], axis=1).ravel()
+        rhs = -scatter_vector(n_unknowns, starts, vectors) - smooth - 1e-9 * c_flat
+        for index, w_a, target in gauge_rows:
+            rhs[index] -= w_a * (w_a @ c_flat[index] - target)
+        step = system.solve(rhs)
+        coef[active] = (c_flat + step).reshape(n_coef, n_act).T
         seg.coefficients = coef
     masks = dict(zip((p.k for p in usable), (w > 0 for w in background.weights)))
     return seg, float(np.sum(weights > 0.5)), n, background.warning, masks

@@ -30,8 +30,7 @@ from skewfix.decode import VideoInfo, black_levels, open_source
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.measure.motion_fit import line_order_note
 from skewfix.models.choice import LensSpec, ModelChoice, choose_model
-from skewfix.motion import (FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion,
-                            load_solver)
+from skewfix.motion import FitSettings, MotionModel, PairObservations, ShotCurves, fit_motion
 from skewfix.rowclock import RowClock, check_readout_fits
 from skewfix.track import PairTracker, TrackerSettings
 from skewfix.warp import StripAffines, WarpMap, correction_map, crop_zoom, reskew_map, warp_plane
@@ -414,7 +413,6 @@ class StreamingWarper(FrameWarper):
 
     def _fit_loop(self) -> None:
         try:
-            load_solver()  # the solver's import overlaps the first frames' decoding
             while True:
                 with self._cond:
                     need = self._fitted_until + self.window_from(self._fitted_until) + self.margin
