@@ -60,13 +60,6 @@ class BandedSystem:
     def add_diagonal(self, values) -> None:
         self.band[:, self.half_width] += values
 
-    def matvec(self, x: np.ndarray) -> np.ndarray:
-        """The matrix times ``x`` (a vector)."""
-        h = self.half_width
-        padded = np.concatenate([np.zeros(h), x, np.zeros(h)])
-        windows = np.lib.stride_tricks.sliding_window_view(padded, 2 * h + 1)
-        return np.einsum("ij,ij->i", self.band, windows)
-
     def solve(self, rhs: np.ndarray) -> np.ndarray:
         """The solution of (matrix) x = rhs, for a vector or a matrix of right-hand sides.
 
