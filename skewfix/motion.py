@@ -361,8 +361,7 @@ def _spline_from_samples(times, values, seg: MotionSegment, weight: float = 1e-3
     system.add_blocks(starts, blocks)
     system.add_entries(*second_difference_penalty(seg.n_coef, weight))
     system.add_diagonal(1e-9)
-    rhs = np.stack([np.bincount(idx.ravel(), weights=(w * np.asarray(v)[:, None]).ravel(), minlength=seg.n_coef)
-                    for v in values], axis=1)
+    rhs = np.stack([scatter_vector(seg.n_coef, idx[:, 0], w * np.asarray(v)[:, None]) for v in values], axis=1)
     return system.solve(rhs).T
 
 
