@@ -6,10 +6,20 @@ A world-fixed point ``q`` (on a plane facing the camera) is seen at time ``t`` a
 
 with ``c`` the image centre, ``X = (pan_x, pan_y)`` the view offset in pixels,
 ``theta`` the roll and ``sigma`` the log zoom. A track seen at ``p0`` (time
-``t0``) and ``p1`` (``t1``) satisfies ``X(t0) + S(t0)^-1 (p0 - c) = X(t1) +
-S(t1)^-1 (p1 - c)``; that world-plane difference is the residual (linear in
-the pan curves, so Gauss-Newton converges in a step or two). The world plane's
-shift, rotation and scale are the gauge: all four curves are pinned.
+``t0``) is the world point ``q0 = X(t0) + S(t0)^-1 (p0 - c)``; the residual is
+where the motion carries it in the second picture less where it was seen,
+``c + S(t1) (q0 - X(t1)) - p1``: the transfer error, in image pixels (linear
+in the pan curves, so Gauss-Newton converges in a step or two). The world
+plane's shift, rotation and scale are the gauge: all four curves are pinned.
+
+The difference of the two world points, ``q0 - q1``, is cheaper but not a
+distance in the picture: it shrinks with the world plane, so wherever the
+pinned gauge reaches a stretch of the shot only through the smoothness
+penalty (the first frame pairs of a shot untracked, or a run of pairs
+missing), the fit could shrink that stretch's world (zoom in without bound)
+and carry every residual towards zero. The transfer error cannot shrink so:
+it is the same whatever the world plane's scale (Hartley & Zisserman,
+*Multiple View Geometry*, 2nd ed., section 4.2.2).
 
 Right for a narrow lens, and for any lens while the camera only pans; at a wide
 field of view a turning camera moves the edges faster than the centre, which
@@ -59,21 +69,33 @@ class Similarity(MotionKind):
         return cx + a * (c * dx - s * dy), cy + a * (s * dx + c * dy)
 
     def constraint(self, values0, p0, values1, p1):
-        """World-plane residual ``q(p0, t0) - q(p1, t1)`` with its analytic Jacobians."""
+        """Transfer error (px) of each track into the second picture, with its analytic
+        Jacobians with respect to the curves at ``t0`` and at ``t1``."""
         n = len(p0)
-        q0 = np.stack(self.to_world(values0, p0[:, 0], p0[:, 1]), 1)
-        q1 = np.stack(self.to_world(values1, p1[:, 0], p1[:, 1]), 1)
+        x0, y0, th0, sg0 = (np.broadcast_to(v, (n,)) for v in values0)
+        x1, y1, th1, sg1 = (np.broadcast_to(v, (n,)) for v in values1)
+        qx, qy = self.to_world(values0, p0[:, 0], p0[:, 1])
+        cx, cy = self.centre
+        # S(t1) = exp(sigma1) R(theta1) as its two columns, per track
+        a1 = np.exp(sg1)
+        c1, s1 = a1 * np.cos(th1), a1 * np.sin(th1)
+        dx, dy = qx - x1, qy - y1
+        wx, wy = c1 * dx - s1 * dy, s1 * dx + c1 * dy  # S(t1) (q0 - X(t1)), an image vector
+        resid = np.stack([cx + wx - p1[:, 0], cy + wy - p1[:, 1]], 1)
         jac0, jac1 = np.zeros((n, 2, 4)), np.zeros((n, 2, 4))
-        for jac, values, q, sign in ((jac0, values0, q0, 1.0), (jac1, values1, q1, -1.0)):
-            x, y, th, sg = (np.broadcast_to(v, (n,)) for v in values)
-            av = q - np.stack([x, y], 1)  # exp(-sigma) R(-theta) (p - c)
-            jac[:, 0, 0] = sign
-            jac[:, 1, 1] = sign
-            if not self.translation_only:
-                # d/d theta of R(-theta) v is (-sin, cos; -cos, -sin) v = (av_y, -av_x)
-                jac[:, 0, 2], jac[:, 1, 2] = sign * av[:, 1], -sign * av[:, 0]
-                jac[:, 0, 3], jac[:, 1, 3] = -sign * av[:, 0], -sign * av[:, 1]
-        return q0 - q1, jac0, jac1
+        # d r / d X(t0) = S(t1); d r / d X(t1) = -S(t1)
+        jac0[:, 0, 0], jac0[:, 1, 0], jac0[:, 0, 1], jac0[:, 1, 1] = c1, s1, -s1, c1
+        jac1[:, :, :2] = -jac0[:, :, :2]
+        if not self.translation_only:
+            # q0 - X(t0) = exp(-sigma0) R(-theta0) (p0 - c) =: u; d u / d theta0 = (u_y, -u_x),
+            # d u / d sigma0 = -u; both carried into the picture by S(t1)
+            ux, uy = qx - x0, qy - y0
+            jac0[:, 0, 2], jac0[:, 1, 2] = c1 * uy + s1 * ux, s1 * uy - c1 * ux
+            jac0[:, 0, 3], jac0[:, 1, 3] = -(c1 * ux - s1 * uy), -(s1 * ux + c1 * uy)
+            # d (S w) / d theta1 = R(90 deg) S w; d / d sigma1 = S w
+            jac1[:, 0, 2], jac1[:, 1, 2] = -wy, wx
+            jac1[:, 0, 3], jac1[:, 1, 3] = wx, wy
+        return resid, jac0, jac1
 
     def pair_inliers(self, p0, p1, threshold: float = 3.0):
         import cv2
