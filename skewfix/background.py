@@ -34,7 +34,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from skewfix.models.base import PointsMemo
+
 MAX_HYPOTHESES = 3
+_HYPOTHESES = PointsMemo()
 MIN_SHARE = 0.1  # a hypothesis must hold this share of a pair's tracks (and 6 at least)
 JUMP_WEIGHT = 0.6  # cost of a displacement jump of one tolerance unit, in shares of tracks
 WEAK_SUPPORT = 0.4
@@ -62,7 +65,12 @@ class BackgroundChoice:
 
 
 def hypotheses(kind, p0: np.ndarray, p1: np.ndarray) -> list[Hypothesis]:
-    """Up to `MAX_HYPOTHESES` motions of one pair by sequential RANSAC."""
+    """Up to `MAX_HYPOTHESES` motions of one pair by sequential RANSAC (found once per pair and
+    kind of inlier test: the result is a function of the points alone, read-only)."""
+    return _HYPOTHESES.get((kind.inlier_key(), p0, p1), lambda: _sequential_ransac(kind, p0, p1))
+
+
+def _sequential_ransac(kind, p0: np.ndarray, p1: np.ndarray) -> list[Hypothesis]:
     import cv2
 
     n = len(p0)

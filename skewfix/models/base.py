@@ -20,6 +20,9 @@ vectorised evaluations, not a pass over the spline).
 
 from __future__ import annotations
 
+import hashlib
+import threading
+from collections import OrderedDict
 from typing import Callable
 
 import numpy as np
@@ -79,6 +82,11 @@ class MotionKind:
         """Which tracks of one frame pair a single global motion explains (RANSAC;
         Fischler & Bolles, 1981), as 0/1 weights; None when that cannot be told."""
         raise NotImplementedError
+
+    def inlier_key(self) -> tuple:
+        """What `pair_inliers` depends on besides the points: kinds with equal keys find the
+        same inliers (a memo of each pair's motions is shared between them)."""
+        return (type(self).__name__,)
 
     def initial_frame_values(self, pairs, clock, first: int, last: int, start_values):
         """A rough (times, values (n_curves, n)) per frame to start the fit from, for
@@ -150,3 +158,49 @@ def make_kind(name: str, width: int, height: int, **parameters) -> MotionKind:
 def kind_from_parameters(name: str, width: int, height: int, parameters: dict) -> MotionKind:
     """The model a motion file describes (``parameters`` as `MotionKind.parameters` wrote them)."""
     return make_kind(name, width, height, **(parameters or {}))
+
+
+class PointsMemo:
+    """A small thread-safe memo of results computed from point arrays, keyed by the arrays'
+    bytes (and any other hashable parts): one pair's RANSAC motions are found once, however
+    many fits (focal-length candidates, overlapping windows) ask for them.
+
+    Only for deterministic computations, so that a value never depends on what ran before
+    (OpenCV's RANSAC draws from a generator it seeds itself; the callers seed the shared one
+    too, in case a version does not).
+    """
+
+    def __init__(self, size: int = 4096):
+        self.size = size
+        self._items: OrderedDict[bytes, object] = OrderedDict()
+        self._lock = threading.Lock()
+
+    @staticmethod
+    def _key(parts) -> bytes:
+        h = hashlib.blake2b(digest_size=20)
+        for part in parts:
+            if isinstance(part, np.ndarray):
+                a = np.ascontiguousarray(part)
+                h.update(f"{a.dtype.str}{a.shape}".encode())
+                h.update(a.tobytes())
+            else:
+                h.update(repr(part).encode())
+            h.update(b"|")
+        return h.digest()
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+
+    def get(self, parts, compute: Callable[[], object]):
+        key = self._key(parts)
+        with self._lock:
+            if key in self._items:
+                self._items.move_to_end(key)
+                return self._items[key]
+        value = compute()
+        with self._lock:
+            self._items[key] = value
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+        return value

@@ -121,16 +121,20 @@ def _sample(pairs, max_pairs: int = MAX_PAIRS, max_tracks: int = MAX_TRACKS_PER_
     return thin_tracks(pairs, max_tracks, seed)
 
 
-def _trimmed_misfit(pairs, clock, width, kind: MotionKind, settings, keep: float = 0.8) -> float:
-    """RMS transfer error (px) of the best ``keep`` share of the world's tracks: a few tracks of a
-    subject left among them cannot make a model with more curves look needed."""
+def _look_misfits(pairs, clock, width, kind: MotionKind, settings, keep: float = 0.8,
+                  bound: float = 3.0) -> tuple[float, float]:
+    """From one fit: the RMS transfer error (px, each track at most ``bound``) of the world's
+    tracks, and the same over their best ``keep`` share (a few tracks of a subject left among
+    them cannot make a model with more curves look needed)."""
     from skewfix.motion import fit_motion, transfer_errors
 
     settings = replace(settings, kind=kind)
     model = fit_motion(pairs, clock, width, settings)
-    e = np.sort(transfer_errors(model, pairs, clock, settings, background_only=True))
-    e = e[: max(1, int(keep * len(e)))]
-    return float(np.sqrt(np.mean(np.minimum(e, 3.0) ** 2))) if e.size else float("nan")
+    e = np.sort(np.minimum(transfer_errors(model, pairs, clock, settings, background_only=True), bound))
+    if not e.size:
+        return float("nan"), float("nan")
+    best = e[: max(1, int(keep * len(e)))]
+    return float(np.sqrt(np.mean(e * e))), float(np.sqrt(np.mean(best * best)))
 
 
 def _misfit(pairs, clock, width, kind: MotionKind, settings) -> tuple[float, int]:
@@ -239,7 +243,7 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
     look = _sample(pairs, QUICK_PAIRS, QUICK_TRACKS)
     look_settings = replace(settings, knots_per_frame=min(settings.knots_per_frame, 2.0),
                             iterations=min(settings.iterations, 3))
-    sim_rms, _ = _misfit(look, clock, width, similarity, look_settings)
+    sim_rms, sim_best_rms = _look_misfits(look, clock, width, similarity, look_settings)
     if lens.given:
         rotation = lens.rotation(width, height)
         rot_rms, _ = _misfit(look, clock, width, rotation, look_settings)
@@ -259,8 +263,8 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
         if not allow_translation:
             return ModelChoice(similarity, reason, misfits)
         translation = make_kind("similarity", width, height, translation_only=True)
-        shift_rms = _trimmed_misfit(look, clock, width, translation, look_settings)
-        full_rms = _trimmed_misfit(look, clock, width, similarity, look_settings)
+        shift_rms = _look_misfits(look, clock, width, translation, look_settings)[1]
+        full_rms = sim_best_rms
         misfits["translation (best 80 %)"], misfits["similarity (best 80 %)"] = shift_rms, full_rms
         if shift_rms <= TRANSLATION_GAIN * full_rms:
             return ModelChoice(translation, f"{reason}; the camera only pans and tilts: without roll and zoom "

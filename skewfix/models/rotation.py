@@ -35,8 +35,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from skewfix.models.base import MotionKind, register
+from skewfix.models.base import MotionKind, PointsMemo, register
 
+_HOMOGRAPHIES = PointsMemo()  # per pair of undistorted point sets: the homography between them
 FULL_FRAME_WIDTH_MM = 36.0  # the long side of a 35 mm still frame, the basis of "35 mm equivalent"
 
 
@@ -176,6 +177,10 @@ class Rotation(MotionKind):
         _, inliers = cv2.findHomography(u0.astype(np.float32), u1.astype(np.float32), cv2.RANSAC, threshold)
         return None if inliers is None else inliers.ravel().astype(np.float64)
 
+    def inlier_key(self) -> tuple:
+        lens = self.lens  # the inliers are found on undistorted pixels
+        return ("homography", lens.k1, lens.k2) + ((lens.focal_px, lens.cx, lens.cy) if lens.distorted else ())
+
     def relative_rotation(self, p0, p1) -> np.ndarray | None:
         """The rotation ``R1 R0^T`` between two frames from one pair's tracks, ignoring
         the rolling shutter: the homography ``K R K^-1`` of a turning camera (RANSAC),
@@ -186,7 +191,12 @@ class Rotation(MotionKind):
             return None
         u0 = np.stack(self._undistorted_pixels(p0), 1).astype(np.float32)
         u1 = np.stack(self._undistorted_pixels(p1), 1).astype(np.float32)
-        hom, _ = cv2.findHomography(u0, u1, cv2.RANSAC, 3.0)
+
+        def homography():
+            cv2.setRNGSeed(len(u0))  # RANSAC's draws from the points alone, not from what ran before
+            return cv2.findHomography(u0, u1, cv2.RANSAC, 3.0)[0]
+
+        hom = _HOMOGRAPHIES.get((u0, u1), homography)  # the same for every focal length tried
         if hom is None:
             return None
         k = self.lens.matrix()
