@@ -72,7 +72,7 @@ class Similarity(MotionKind):
         """Transfer error (px) of each track into the second picture, with its analytic
         Jacobians with respect to the curves at ``t0`` and at ``t1``."""
         n = len(p0)
-        x0, y0, th0, sg0 = (np.broadcast_to(v, (n,)) for v in values0)
+        x0, y0 = (np.broadcast_to(v, (n,)) for v in values0[:2])
         x1, y1, th1, sg1 = (np.broadcast_to(v, (n,)) for v in values1)
         qx, qy = self.to_world(values0, p0[:, 0], p0[:, 1])
         cx, cy = self.centre
