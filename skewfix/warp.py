@@ -252,25 +252,32 @@ class StripAffines:
         row_edges = np.clip(np.ceil(ys), 0, height).astype(int)
         col_edges = np.clip(np.ceil(xs), 0, width).astype(int)
         col_edges[-1] = width
-        whole = _tile_affines(ax, ay, xs, cy, 0, gw - 1)
+        first_rows = row_edges[:-1]
+        coefs, misses = _tile_affines(ax, ay, xs, cy, 0, gw - 1)
+        whole = _tile_matrices(coefs, xs[0], ys[:-1], np.zeros_like(first_rows), first_rows)
         spans = [(j0, min(j0 + narrow, gw - 1)) for j0 in range(0, gw - 1, narrow)]
-        narrow_fits = None  # per span: the tile fits of every strip, made when some strip needs them
+        narrow_fits = None  # per span: (matrices, misses) of every strip, made when some strip needs them
         tiles = []
-        for i, (coef, miss) in enumerate(zip(*whole)):
+        for i, miss in enumerate(misses):
             r0, r1 = row_edges[i], row_edges[i + 1]
             if r1 <= r0:
                 continue
             if miss <= tolerance:
-                tiles.append((r0, r1, 0, width, _tile_matrix(coef, xs[0], ys[i], 0, r0)))
+                tiles.append((r0, r1, 0, width, whole[i]))
                 continue
             if narrow_fits is None:
-                narrow_fits = [_tile_affines(ax, ay, xs, cy, j0, j1) for j0, j1 in spans]
-            for (j0, j1), (coefs, misses) in zip(spans, narrow_fits):
+                narrow_fits = []
+                for j0, j1 in spans:
+                    span_coefs, span_misses = _tile_affines(ax, ay, xs, cy, j0, j1)
+                    first_cols = np.full_like(first_rows, col_edges[j0])
+                    narrow_fits.append((_tile_matrices(span_coefs, xs[j0], ys[:-1], first_cols, first_rows),
+                                        span_misses))
+            for (j0, j1), (matrices, span_misses) in zip(spans, narrow_fits):
                 c0, c1 = col_edges[j0], col_edges[j1]
                 if c1 <= c0:
                     continue
-                if misses[i] <= tolerance:
-                    tiles.append((r0, r1, c0, c1, _tile_matrix(coefs[i], xs[j0], ys[i], c0, r0)))
+                if span_misses[i] <= tolerance:
+                    tiles.append((r0, r1, c0, c1, matrices[i]))
                 elif tiles and tiles[-1][4] is None and tiles[-1][:2] == (r0, r1) and tiles[-1][3] == c0:
                     tiles[-1] = (r0, r1, tiles[-1][2], c1, None)  # one remap for neighbouring misses
                 else:
@@ -288,15 +295,18 @@ def _tile_affines(ax, ay, xs, cell_y, j0, j1):
     cols = slice(j0, j1 + 1)
     target = np.concatenate([np.stack([ax[:-1, cols], ay[:-1, cols]], -1),
                              np.stack([ax[1:, cols], ay[1:, cols]], -1)], axis=1).astype(np.float64)
-    coef = np.einsum("ps,nsc->npc", np.linalg.pinv(design), target)
-    miss = np.abs(np.einsum("sp,npc->nsc", design, coef) - target).max(axis=(1, 2))
+    coef = np.linalg.pinv(design) @ target  # (strips, 3, 2): one small product per strip, batched
+    miss = np.abs(design @ coef - target).max(axis=(1, 2))
     return coef, miss
 
 
-def _tile_matrix(coef, x_origin, y_origin, col0, row0) -> np.ndarray:
-    """cv2.warpAffine's 2x3 inverse map for a tile whose first pixel is (col0, row0)."""
-    m = coef.T.copy()  # rows: source x, source y; columns: x, y, 1
-    m[:, 2] += m[:, 0] * (col0 - x_origin) + m[:, 1] * (row0 - y_origin)
+def _tile_matrices(coefs, x_origin, y_origin, col0, row0) -> np.ndarray:
+    """cv2.warpAffine's 2x3 inverse maps (tiles, 2, 3) for tiles whose first pixels are (col0, row0).
+
+    ``coefs`` (tiles, 3, 2) from `_tile_affines`; the origins and first pixels are per tile."""
+    m = np.swapaxes(coefs, 1, 2).copy()  # rows: source x, source y; columns: x, y, 1
+    m[:, :, 2] += m[:, :, 0] * (np.asarray(col0) - x_origin)[:, None] \
+        + m[:, :, 1] * (np.asarray(row0) - y_origin)[:, None]
     return m
 
 
