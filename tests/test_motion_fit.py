@@ -54,6 +54,34 @@ def test_steady_motion_is_refused(tmp_path, panorama, camera):
         measure_motion(clip(tmp_path, panorama, camera, 0.02))
 
 
+# The verdict on a jackknife uncertainty, at 25 fps (a 40 ms frame interval). The shares are common
+# practice: a global shutter reads every row at once (fact of the trade), so a result that cannot
+# be told from zero says nothing about the readout, and one that moves by more than a quarter of
+# the interval when a stretch of frames is left out is reported as weak rather than hidden.
+@pytest.mark.parametrize("best_ms, sigma_ms, verdict", [
+    (20.0, 0.5, "sound"),    # a whip pan
+    (26.7, 10.5, "weak"),    # over a quarter of the interval, clear of zero
+    (-26.7, 10.5, "weak"),   # the same, bottom-up
+    (9.5, 4.5, "sound"),     # over a tenth, but zero lies outside two sigma
+    (3.0, 4.5, "refuse"),    # over a tenth, and zero within two sigma
+    (1.0, 3.9, "sound"),     # near zero with a small sigma: a global shutter, measured
+    (20.0, float("inf"), "refuse"),
+])
+def test_the_verdict_on_an_uncertainty(best_ms, sigma_ms, verdict):
+    from skewfix.measure.motion_fit import judge_uncertainty
+
+    assert judge_uncertainty(best_ms / 1e3, sigma_ms / 1e3, 0.040) == verdict
+
+
+def test_a_weak_result_is_reported_with_its_note(tmp_path, panorama, monkeypatch):
+    import skewfix.measure.motion_fit as motion_fit
+
+    monkeypatch.setattr(motion_fit, "judge_uncertainty", lambda best, sigma, interval: "weak")
+    est = measure_motion(clip(tmp_path, panorama, whip(25), 0.020))
+    assert est.readout_s == pytest.approx(0.020, rel=0.05)
+    assert any("the uncertainty is large" in note for note in est.notes)
+
+
 def test_measure_saves_the_solved_motion(tmp_path, panorama):
     from skewfix.cli import main
     from skewfix.motionfile import load_motion

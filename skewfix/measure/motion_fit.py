@@ -279,14 +279,10 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
         uncertainty = JACKKNIFE_SCALE * float(np.sqrt((g - 1) / g * np.sum((e - e.mean()) ** 2)))
     else:
         uncertainty = float("inf")
-    # too vague to report: more than a tenth of the frame interval either way while not even
-    # telling a rolling shutter from a global one (zero within two sigma)
-    too_vague = uncertainty > 0.1 * interval and abs(best) < 2 * uncertainty
-    if not np.isfinite(uncertainty) or too_vague:
+    verdict = judge_uncertainty(best, uncertainty, interval)
+    if verdict == "refuse":
         raise refusal(f"{info.path}: {STEADY_MESSAGE}", estimate(uncertainty, "undetermined", notes))
-    if uncertainty > 0.25 * interval:
-        # a result, but a weak one: leaving out one stretch of frames moves it far (the evidence
-        # sits in a few frames, e.g. the peak of one whip pan)
+    if verdict == "weak":
         notes.append(f"the uncertainty is large ({uncertainty * 1e3:.2f} ms): most of the evidence comes "
                      "from a few frames; a longer take with more changes of motion, or a flicker or pan "
                      "test, would pin the readout down better")
@@ -307,6 +303,26 @@ def measure_motion(analysis, line_order: str | None = None, frame_interval: floa
     if order == "undetermined":
         notes.append("the readout is too close to zero to tell the line order (a global shutter, or nearly)")
     return estimate(uncertainty, order, notes)
+
+
+#: shares of the frame interval (common practice): an uncertainty above VAGUE_SHARE that cannot
+#: tell the readout from zero is refused; one above WEAK_SHARE is reported with a note
+VAGUE_SHARE, WEAK_SHARE = 0.1, 0.25
+
+
+def judge_uncertainty(best: float, uncertainty: float, interval: float) -> str:
+    """"refuse", "weak" or "sound" for a signed best readout and its jackknife uncertainty (s).
+
+    Refused: no finite uncertainty, or more than a tenth of the frame interval while zero lies
+    within two sigma (the clip cannot tell a rolling shutter from a global one). Weak, reported
+    with a note: more than a quarter of the interval, but clear of zero (leaving out one stretch
+    of frames moved the result far: the evidence sits in a few frames). Sound otherwise.
+    """
+    if not np.isfinite(uncertainty):
+        return "refuse"
+    if uncertainty > VAGUE_SHARE * interval and abs(best) < 2 * uncertainty:
+        return "refuse"
+    return "weak" if uncertainty > WEAK_SHARE * interval else "sound"
 
 
 def auto_readout_resolver(line_order: str | None, progress=_quiet):
