@@ -15,6 +15,7 @@ one four times longer, and the time of `skewfix measure --method flicker`.
     python scripts/bench_speed.py --against REV [--repeats N]
     python scripts/bench_speed.py --threads [--repeats N]
     python scripts/bench_speed.py --floor [--quick] [--repeats N]
+    python scripts/bench_speed.py --limit [--repeats N]
 
 ``--costs`` instead times each stage alone on one thread at 1080p and prints
 the ratio those costs allow at best (every core busy in both jobs).
@@ -25,6 +26,9 @@ change did on a noisy machine.
 encoding fix's own corrected pictures at the same settings (the pictures made
 once, decoded into memory untimed, picture types cleared); wall and CPU, the
 best of N alternating rounds, the load beside each figure.
+``--limit`` runs the floor, the bare stages (decode, proxy, phase seed, Lucas-Kanade both
+ways, strip-wise warpAffine, encode, written with OpenCV and PyAV alone) and fix, linear
+and cubic, alternating: a bound on the ratio any fix built from those stages can reach.
 ``--threads`` runs plain and fix on the 1080p clip while sampling the CPU time
 of every thread of the child (/proc/PID/task), and prints CPU seconds per
 thread: where the cores go when everything runs at once.
@@ -167,6 +171,71 @@ def floor_job(source: str, pictures_file: str, target: str, codec: str) -> dict:
     return {"frames": frames, "seconds": time.perf_counter() - start, "cpu_s": time.process_time() - cpu}
 
 
+def bare_job(source: str, target: str, codec: str, interpolation: str) -> dict:
+    """The stages no correction can skip, written with OpenCV and PyAV alone (no skewfix code).
+
+    Per frame: decode (slice threads, as fix's decoder), a 960 px proxy, a phase-correlation
+    seed at half that size, pyramidal Lucas-Kanade forward and back (15 px window, 3 levels)
+    from 288 points on a fixed grid (no corner search), then every plane warped strip by strip
+    with cv2.warpAffine (a fixed shear per 32-row strip, as a whip pan's correction makes;
+    the chosen interpolation for luma, bilinear for subsampled chroma, as fix does) and encoded
+    with fix's settings. No corner search, fit or map, and no threads of its own: a lower bound
+    on any fix built from these stages, timed like the floor (from after the imports).
+    """
+    import av
+    import cv2
+    import numpy as np
+
+    cv2.setNumThreads(1)
+    flag = {"linear": cv2.INTER_LINEAR, "cubic": cv2.INTER_CUBIC}[interpolation]
+    encoder, options = ENCODE[codec]
+    gx, gy = np.meshgrid(np.linspace(40, 920, 18), np.linspace(30, 500, 16))
+    pts = np.float32(np.stack([gx.ravel(), gy.ravel()], 1)).reshape(-1, 1, 2)  # 288 points
+    start, cpu = time.perf_counter(), time.process_time()
+    frames, previous = 0, None
+    with av.open(source) as inp, av.open(target, "w") as out:
+        video = inp.streams.video[0]
+        video.thread_type = "SLICE"
+        stream = out.add_stream(encoder, rate=video.average_rate)
+        stream.width, stream.height = video.codec_context.width, video.codec_context.height
+        stream.pix_fmt = video.codec_context.pix_fmt
+        stream.codec_context.time_base = video.time_base
+        stream.options = dict(options)
+        for frame in inp.decode(video):
+            planes = [np.frombuffer(p, np.uint8 if p.line_size < 2 * p.width else np.uint16)
+                      .reshape(p.height, -1)[:, :p.width] for p in frame.planes]
+            luma = planes[0] if planes[0].dtype == np.uint8 else (planes[0] >> 2).astype(np.uint8)
+            scale = 960 / max(luma.shape)
+            proxy = cv2.resize(luma, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
+            if previous is not None:
+                half = [np.float32(cv2.resize(p, None, fx=0.5, fy=0.5, interpolation=cv2.INTER_AREA))
+                        for p in (previous, proxy)]
+                (dx, dy), _ = cv2.phaseCorrelate(*half)
+                guess = pts + 2 * np.float32([dx, dy])
+                lk = dict(winSize=(15, 15), maxLevel=3, flags=cv2.OPTFLOW_USE_INITIAL_FLOW,
+                          criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 20, 0.01))
+                fwd, _, _ = cv2.calcOpticalFlowPyrLK(previous, proxy, pts, guess, **lk)
+                cv2.calcOpticalFlowPyrLK(proxy, previous, fwd, pts.copy(), **lk)
+            previous = proxy
+            picture = av.VideoFrame(frame.width, frame.height, frame.format.name)
+            for index, (src, dst) in enumerate(zip(planes, picture.planes)):
+                plane_flag = flag if index == 0 else cv2.INTER_LINEAR
+                view = np.frombuffer(dst, src.dtype).reshape(dst.height, -1)[:, :dst.width]
+                strip = 32 * src.shape[0] // frame.height
+                for r0 in range(0, src.shape[0], strip):
+                    rows = min(strip, src.shape[0] - r0)
+                    shear = np.float64([[1.0, 0.01, 0.3 + 0.01 * r0], [0.0, 1.0, r0 + 0.2]])
+                    cv2.warpAffine(src, shear, (src.shape[1], rows), dst=view[r0:r0 + rows],
+                                   flags=plane_flag | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_REPLICATE)
+            picture.pts, picture.time_base = frame.pts, frame.time_base
+            for packet in stream.encode(picture):
+                out.mux(packet)
+            frames += 1
+        for packet in stream.encode():
+            out.mux(packet)
+    return {"frames": frames, "seconds": time.perf_counter() - start, "cpu_s": time.process_time() - cpu}
+
+
 def fix(source: str, target: str, codec: str, readout: float, interpolation: str = "cubic") -> dict:
     from skewfix.pipeline import FixOptions, fix_clip
 
@@ -221,6 +290,8 @@ def child_main(job: str, *rest: str) -> None:
         report = floor_job(rest[0], rest[1], rest[2], rest[3])
     elif job == "fix":
         report = fix(rest[0], rest[1], rest[2], float(rest[3]), rest[4])
+    elif job == "bare":
+        report = bare_job(rest[0], rest[1], rest[2], rest[4])
     else:  # "cli": the skewfix command line, in process
         from skewfix.cli import main as cli_main
 
@@ -651,6 +722,44 @@ def floor_table(specs: list[ClipSpec], repeats: int, work: Path) -> None:
           "wall and CPU alike")
 
 
+def limit_table(spec: ClipSpec, repeats: int, work: Path) -> None:
+    """The floor, the bare stages (`bare_job`) and fix, linear and cubic, alternating; CPU ratios.
+
+    A second measurement of what the ratio targets allow, independent of skewfix's code: if the
+    bare stages alone cost more than a target over the floor, no fix built from them meets it.
+    """
+    spec.render()
+    pictures = work / "pictures_limit.mkv"
+    run_child(cli_args("fix", str(spec.file), str(pictures), "--readout", f"{spec.readout * 1e3:g}ms",
+                       "--codec", "ffv1", "--force", "--quiet"))
+    suffix = spec.file.suffix
+    jobs = {"floor": [sys.executable, __file__, "--child", "floor", str(spec.file), str(pictures),
+                      str(work / f"floor{suffix}"), spec.codec]}
+    for interp in ("linear", "cubic"):
+        for job in ("bare", "fix"):
+            jobs[f"{job} {interp}"] = [sys.executable, __file__, "--child", job, str(spec.file),
+                                       str(work / f"{job}{suffix}"), spec.codec, repr(spec.readout), interp]
+    runs: dict[str, list[tuple[dict, float]]] = {job: [] for job in jobs}
+    for _ in range(repeats):
+        for job, args in jobs.items():
+            load = load_now()
+            runs[job].append((run_child(args)[0], load))
+    print(f"the floor, the bare stages and fix, {spec.label}, {spec.frames} frames, best of {repeats} "
+          "alternating round(s), every run a fresh process")
+    print("bare = decode, 960 px proxy, phase seed, Lucas-Kanade both ways from 288 grid points, strip-wise "
+          "cv2.warpAffine of every plane, encode: OpenCV and PyAV only, one thread of its own")
+    head = f"{'job':14} {'wall s':>7} {'CPU s':>7} {'(load)':>6} {'CPU/floor':>9} {'own ms/f':>8}"
+    print(head)
+    print("-" * len(head))
+    floor_cpu = min(r["cpu_s"] for r, _ in runs["floor"])
+    for job, reports in runs.items():
+        report, load = min(reports, key=lambda item: item[0]["cpu_s"])
+        own = 1e3 * (report["cpu_s"] - floor_cpu) / spec.frames
+        print(f"{job:14} {min(r['seconds'] for r, _ in reports):7.2f} {report['cpu_s']:7.2f} ({load:4.1f}) "
+              f"{report['cpu_s'] / floor_cpu:8.2f}x {own:8.1f}")
+    print("targets for fix (CPU/floor): cubic <= 1.35x, linear <= 1.20x")
+
+
 # -- cost of each stage on one core ------------------------------------------------------
 
 def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
@@ -757,6 +866,9 @@ def main(argv=None):
     ap.add_argument("--floor", action="store_true",
                     help="only fix against the floor (decode + encode of fix's own pictures), 1080p cubic and "
                          "linear, 4K and 10-bit ProRes")
+    ap.add_argument("--limit", action="store_true",
+                    help="only the floor, the bare stages (OpenCV and PyAV, no skewfix code) and fix at 1080p, "
+                         "linear and cubic: what the ratio targets allow")
     ap.add_argument("--threads", action="store_true",
                     help="only CPU seconds per thread of plain and fix on the 1080p clip")
     argv = sys.argv[1:] if argv is None else list(argv)
@@ -774,6 +886,10 @@ def main(argv=None):
         with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
             keys = ("1080", "1080lin") if args.quick else ("1080", "1080lin", "4k", "prores")
             floor_table([specs[k] for k in keys], args.repeats or 3, Path(tmp))
+        return 0
+    if args.limit:
+        with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
+            limit_table(specs["1080"], args.repeats or 3, Path(tmp))
         return 0
     if args.threads:
         with tempfile.TemporaryDirectory(prefix="skewfix-bench-") as tmp:
