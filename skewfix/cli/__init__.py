@@ -16,6 +16,7 @@ import sys
 
 import typer
 
+from skewfix.cli.options import flag
 from skewfix.errors import SkewfixError, plain_media_error
 
 app = typer.Typer(
@@ -35,7 +36,7 @@ _stopped_by = {"signal": signal.SIGINT}  # which signal stopped the run (SIGINT 
 
 
 @app.callback()
-def _root(debug: bool = typer.Option(False, DEBUG_OPTION, help="Show full tracebacks on errors "
+def _root(debug: bool = flag(DEBUG_OPTION, help="Show full tracebacks on errors "
                                                                 "(anywhere on the command line).")):
     """Measure and remove rolling-shutter skew in footage."""
     # the option is read by `main` from the arguments, before any command runs

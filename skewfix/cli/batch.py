@@ -9,7 +9,7 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.options import distortion_option, focal_option, hfov_option, model_option
+from skewfix.cli.options import flag, distortion_option, focal_option, hfov_option, model_option
 from skewfix.errors import UsageProblem
 
 
@@ -69,8 +69,8 @@ def batch_command(
                                           help="Clips corrected at once on this machine (default: half the cores)."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler",
                                             help="Address of a Dask scheduler (tcp://host:8786): one task per clip."),
-    force: bool = typer.Option(False, "--force", help="Correct every clip again, replacing outputs that exist."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No line per finished clip; only the summary."),
+    force: bool = flag("--force", help="Correct every clip again, replacing outputs that exist."),
+    quiet: bool = flag("--quiet", "-q", help="No line per finished clip; only the summary."),
 ):
     """Correct many clips: locally in worker processes or on a Dask cluster; reruns skip finished clips."""
     from skewfix.batch import run_batch

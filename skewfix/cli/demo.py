@@ -8,6 +8,7 @@ from pathlib import Path
 import typer
 
 from skewfix.cli import app
+from skewfix.cli.options import flag
 from skewfix.cli.progress import TerminalProgress
 from skewfix.framerange import VIDEO_FIRST_NUMBER
 
@@ -40,7 +41,7 @@ def render_demo_clip(path: Path) -> None:
 @app.command("demo")
 def demo_command(
     folder: Path = typer.Option(Path("clips"), "--folder", help="Where the demo clip and results go."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+    quiet: bool = flag("--quiet", "-q", help="No progress bar."),
 ):
     """Render a demo whip pan (an invented harbour), correct it, write a before/after still."""
     from skewfix.pipeline import FixOptions, fix_clip

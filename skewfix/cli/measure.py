@@ -13,7 +13,7 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.options import (choice, distortion_option, focal_option, frames_option, hfov_option,
+from skewfix.cli.options import (flag, choice, distortion_option, focal_option, frames_option, hfov_option,
                                  model_and_lens, model_option)
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress
@@ -318,7 +318,7 @@ def measure_command(
     hfov: Optional[str] = hfov_option(),
     focal_length: Optional[str] = focal_option(),
     lens_distortion: Optional[str] = distortion_option(),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Only the result line; no progress or notes."),
+    quiet: bool = flag("--quiet", "-q", help="Only the result line; no progress or notes."),
 ):
     """Measure the readout time (first to last row) of the camera mode that shot CLIP."""
     choice(method, METHODS, "--method")

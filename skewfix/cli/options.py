@@ -16,6 +16,12 @@ def choice(value: str, allowed, option: str) -> str:
     return value
 
 
+def flag(*names: str, help: str):
+    """An on/off option (False unless given). Its help shows no value placeholder: typer would
+    print ``<bool>``, as if the flag took a value."""
+    return typer.Option(False, *names, help=help, metavar="")
+
+
 # The motion model and lens options, shared by fix, measure, preview and batch.
 MODEL_HELP = ("Motion model: auto (default: the similarity unless a wide lens turning is seen), "
               "similarity (pan, tilt, roll, zoom of the picture) or rotation (a camera turning "

@@ -14,7 +14,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, solve_with_model
-from skewfix.cli.options import (choice, distortion_option, focal_option, frames_option, hfov_option,
+from skewfix.cli.options import (flag, choice, distortion_option, focal_option, frames_option, hfov_option,
                                  model_and_lens, model_option)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, UsageProblem
@@ -54,8 +54,8 @@ def preview_command(
     reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
     border: str = typer.Option("edge", "--border", help="edge, black or crop."),
     fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
-    force: bool = typer.Option(False, "--force", help="Replace OUT if it exists."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+    force: bool = flag("--force", help="Replace OUT if it exists."),
+    quiet: bool = flag("--quiet", "-q", help="No progress bar."),
     model: str = model_option(),
     hfov: Optional[str] = hfov_option(),
     focal_length: Optional[str] = focal_option(),

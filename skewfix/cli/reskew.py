@@ -10,7 +10,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
-from skewfix.cli.options import choice
+from skewfix.cli.options import flag, choice
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
@@ -35,8 +35,8 @@ def reskew_command(
     overscan: Optional[str] = typer.Option(None, "--overscan", metavar="1.1|96px|96,54px",
                                            help="INPUT is larger than the plate, centred on it: by a factor "
                                                 "(1.1) or a margin on each side in pixels; OUTPUT keeps INPUT's size."),
-    force: bool = typer.Option(False, "--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar."),
+    force: bool = flag("--force", help="Replace OUTPUT if it exists (a sequence as a whole)."),
+    quiet: bool = flag("--quiet", "-q", help="No progress bar."),
 ):
     """Put the rolling shutter of a saved motion file back onto INPUT and write OUTPUT.
 
