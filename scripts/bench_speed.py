@@ -27,8 +27,9 @@ encoding fix's own corrected pictures at the same settings (the pictures made
 once, decoded into memory untimed, picture types cleared); wall and CPU, the
 best of N alternating rounds, the load beside each figure.
 ``--limit`` runs the floor, the bare stages (decode, proxy, phase seed, Lucas-Kanade both
-ways, strip-wise warpAffine, encode, written with OpenCV and PyAV alone) and fix, linear
-and cubic, alternating: a bound on the ratio any fix built from those stages can reach.
+ways, strip-wise warpAffine, encode, written with OpenCV and PyAV alone), the same without
+the tracking ("warp only") and fix, linear and cubic, alternating: a bound on the ratio any
+fix built from those stages can reach (a loose one on two cores: see DEVELOPERS.md).
 ``--threads`` runs plain and fix on the 1080p clip while sampling the CPU time
 of every thread of the child (/proc/PID/task), and prints CPU seconds per
 thread: where the cores go when everything runs at once.
@@ -171,7 +172,7 @@ def floor_job(source: str, pictures_file: str, target: str, codec: str) -> dict:
     return {"frames": frames, "seconds": time.perf_counter() - start, "cpu_s": time.process_time() - cpu}
 
 
-def bare_job(source: str, target: str, codec: str, interpolation: str) -> dict:
+def bare_job(source: str, target: str, codec: str, interpolation: str, track: bool = True) -> dict:
     """The stages no correction can skip, written with OpenCV and PyAV alone (no skewfix code).
 
     Per frame: decode (slice threads, as fix's decoder), a 960 px proxy, a phase-correlation
@@ -181,6 +182,8 @@ def bare_job(source: str, target: str, codec: str, interpolation: str) -> dict:
     the chosen interpolation for luma, bilinear for subsampled chroma, as fix does) and encoded
     with fix's settings. No corner search, fit or map, and no threads of its own: a lower bound
     on any fix built from these stages, timed like the floor (from after the imports).
+    ``track=False`` leaves out the proxy and the tracking: only the resampling every
+    correction must do, between decode and encode.
     """
     import av
     import cv2
@@ -207,7 +210,7 @@ def bare_job(source: str, target: str, codec: str, interpolation: str) -> dict:
             luma = planes[0] if planes[0].dtype == np.uint8 else (planes[0] >> 2).astype(np.uint8)
             scale = 960 / max(luma.shape)
             proxy = cv2.resize(luma, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
-            if previous is not None:
+            if previous is not None and track:
                 half = [np.float32(cv2.resize(p, None, fx=0.5, fy=0.5, interpolation=cv2.INTER_AREA))
                         for p in (previous, proxy)]
                 (dx, dy), _ = cv2.phaseCorrelate(*half)
@@ -291,7 +294,7 @@ def child_main(job: str, *rest: str) -> None:
     elif job == "fix":
         report = fix(rest[0], rest[1], rest[2], float(rest[3]), rest[4])
     elif job == "bare":
-        report = bare_job(rest[0], rest[1], rest[2], rest[4])
+        report = bare_job(rest[0], rest[1], rest[2], rest[4], track=rest[5:6] != ["warp-only"])
     else:  # "cli": the skewfix command line, in process
         from skewfix.cli import main as cli_main
 
@@ -736,9 +739,12 @@ def limit_table(spec: ClipSpec, repeats: int, work: Path) -> None:
     jobs = {"floor": [sys.executable, __file__, "--child", "floor", str(spec.file), str(pictures),
                       str(work / f"floor{suffix}"), spec.codec]}
     for interp in ("linear", "cubic"):
-        for job in ("bare", "fix"):
-            jobs[f"{job} {interp}"] = [sys.executable, __file__, "--child", job, str(spec.file),
-                                       str(work / f"{job}{suffix}"), spec.codec, repr(spec.readout), interp]
+        for job in ("warp only", "bare", "fix"):
+            child = "bare" if job == "warp only" else job
+            jobs[f"{job} {interp}"] = [sys.executable, __file__, "--child", child, str(spec.file),
+                                       str(work / f"{child}{suffix}"), spec.codec, repr(spec.readout), interp]
+            if job == "warp only":
+                jobs[f"{job} {interp}"].append("warp-only")
     runs: dict[str, list[tuple[dict, float]]] = {job: [] for job in jobs}
     for _ in range(repeats):
         for job, args in jobs.items():
@@ -747,15 +753,16 @@ def limit_table(spec: ClipSpec, repeats: int, work: Path) -> None:
     print(f"the floor, the bare stages and fix, {spec.label}, {spec.frames} frames, best of {repeats} "
           "alternating round(s), every run a fresh process")
     print("bare = decode, 960 px proxy, phase seed, Lucas-Kanade both ways from 288 grid points, strip-wise "
-          "cv2.warpAffine of every plane, encode: OpenCV and PyAV only, one thread of its own")
-    head = f"{'job':14} {'wall s':>7} {'CPU s':>7} {'(load)':>6} {'CPU/floor':>9} {'own ms/f':>8}"
+          "cv2.warpAffine of every plane, encode: OpenCV and PyAV only, one thread of its own; warp only = "
+          "the same without proxy and tracking")
+    head = f"{'job':17} {'wall s':>7} {'CPU s':>7} {'(load)':>6} {'CPU/floor':>9} {'own ms/f':>8}"
     print(head)
     print("-" * len(head))
     floor_cpu = min(r["cpu_s"] for r, _ in runs["floor"])
     for job, reports in runs.items():
         report, load = min(reports, key=lambda item: item[0]["cpu_s"])
         own = 1e3 * (report["cpu_s"] - floor_cpu) / spec.frames
-        print(f"{job:14} {min(r['seconds'] for r, _ in reports):7.2f} {report['cpu_s']:7.2f} ({load:4.1f}) "
+        print(f"{job:17} {min(r['seconds'] for r, _ in reports):7.2f} {report['cpu_s']:7.2f} ({load:4.1f}) "
               f"{report['cpu_s'] / floor_cpu:8.2f}x {own:8.1f}")
     print("targets for fix (CPU/floor): cubic <= 1.35x, linear <= 1.20x")
 
