@@ -5,8 +5,9 @@ edges of a wide picture faster than its middle (at 90 degrees of horizontal
 view, twice as fast at the edges for a pan); only the right focal length
 makes one rotation explain every track of a frame pair. We fit the rotation
 model for candidate focal lengths (log-spaced fields of view from 20 to 150
-degrees, then finer around the best) and take the vertex of a parabola
-through the bounded track misfit near its minimum; the uncertainty is the
+degrees on a quick look at fewer tracks, then finer around the best on the full
+sample) and take the vertex of a parabola through the bounded track misfit near
+its minimum, where the misfit is measured once more; the uncertainty is the
 curvature's (the Laplace approximation ``var = 2 s^2 / S''``, as for the
 readout). A plain pan (or a narrow lens) leaves the misfit flat: the focal
 length is then *not observable* and we say so instead of guessing.
@@ -121,6 +122,13 @@ def _sample(pairs, max_pairs: int = MAX_PAIRS, max_tracks: int = MAX_TRACKS_PER_
     return thin_tracks(pairs, max_tracks, seed)
 
 
+def _quick(settings):
+    """Fit settings for a first look, where no precision is needed: at most 2 knots a frame
+    and 3 rounds (a few times cheaper)."""
+    return replace(settings, knots_per_frame=min(settings.knots_per_frame, 2.0),
+                   iterations=min(settings.iterations, 3))
+
+
 def _look_misfits(pairs, clock, width, kind: MotionKind, settings, keep: float = 0.8,
                   bound: float = 3.0) -> tuple[float, float]:
     """From one fit: the RMS transfer error (px, each track at most ``bound``) of the world's
@@ -163,27 +171,26 @@ def estimate_focal(pairs, clock, width: int, lens: LensSpec, settings=None) -> F
     if len(pairs) < 4:
         raise MeasurementRefused("too few trackable frame pairs to measure the lens's focal length")
 
-    def sums(focals):
+    def sums(focals, use, fit_settings):
         out, count = [], 0
         for f in focals:
-            rms, count = _misfit(pairs, clock, width, lens.rotation(width, height, f), settings)
+            rms, count = _misfit(use, clock, width, lens.rotation(width, height, f), fit_settings)
             out.append(rms * rms * count)
         return np.array(out), count
 
+    # the coarse pass only brackets the minimum: a quick look (fewer pairs, tracks, knots and
+    # rounds) is enough; the fine pass and its parabola use the full sample and settings
+    look = _sample(pairs, QUICK_PAIRS, QUICK_TRACKS)
     coarse = np.array([focal_from_hfov(width, a) for a in np.geomspace(150.0, 20.0, 11)])
-    s_coarse, n_obs = sums(coarse)
+    s_coarse, _ = sums(coarse, look, _quick(settings))
     i = int(np.argmin(s_coarse))
     lo, hi = coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)]
     fine = np.geomspace(lo, hi, 7)
-    s_fine, _ = sums(fine)
-    focals = np.concatenate([coarse, fine])
-    totals = np.concatenate([s_coarse, s_fine])
-    order = np.argsort(focals)
-    focals, totals = focals[order], totals[order]
+    totals, n_obs = sums(fine, pairs, settings)
     j = int(np.argmin(totals))
-    near = np.abs(np.log(focals / focals[j])) <= 1.01 * np.log(fine[1] / fine[0])
-    x0 = math.log(focals[j])
-    x = np.log(focals[near]) - x0  # centred: a well-conditioned parabola
+    near = np.abs(np.log(fine / fine[j])) <= 1.01 * np.log(fine[1] / fine[0])
+    x0 = math.log(fine[j])
+    x = np.log(fine[near]) - x0  # centred: a well-conditioned parabola
     a, b, _ = np.polyfit(x, totals[near], 2) if len(np.unique(x)) >= 3 else (0.0, 0.0, 0.0)
     s_min = float(totals[j])
     best_log = x0 + (-b / (2 * a) if a > 0 else 0.0)
@@ -192,14 +199,16 @@ def estimate_focal(pairs, clock, width: int, lens: LensSpec, settings=None) -> F
     # tracks of one pair share its errors: inflate by the tracks per pair, as for the readout
     log_sd = math.sqrt(2 * sigma2 / (2 * a)) * math.sqrt(max(n_obs / len(pairs), 1.0)) / 4.0 if a > 0 else math.inf
     uncertainty = best * log_sd
-    depth = (float(np.max(s_coarse)) - s_min) / max(s_min, 1e-12)
-    at_edge = focals[j] <= focals[0] * (1 + 1e-9) or focals[j] >= focals[-1] * (1 - 1e-9)  # the search's ends
+    depth = (float(np.max(s_coarse)) - float(np.min(s_coarse))) / max(float(np.min(s_coarse)), 1e-12)
+    at_edge = fine[j] <= coarse[0] * (1 + 1e-9) or fine[j] >= coarse[-1] * (1 - 1e-9)  # the search's ends
     if at_edge or not math.isfinite(uncertainty) or uncertainty > FOCAL_RELATIVE_LIMIT * best or depth < 0.05:
         raise MeasurementRefused(
             "the footage does not reveal the lens's focal length (a plain pan, a narrow lens or too little "
             "turning); give it with --hfov or --focal-length, or use --model similarity")
-    rms = math.sqrt(s_min / max(n_obs, 1))
-    return FocalEstimate(best, uncertainty, rms, focals, totals)
+    rms, _ = _misfit(pairs, clock, width, lens.rotation(width, height, best), settings)  # at the estimate
+    if not math.isfinite(rms):
+        rms = math.sqrt(s_min / max(n_obs, 1))
+    return FocalEstimate(best, uncertainty, rms, fine, totals)
 
 
 @dataclass
@@ -241,8 +250,7 @@ def choose_model(request: str, pairs, clock, width: int, lens: LensSpec, setting
         return ModelChoice(similarity, "too few tracked frame pairs to compare models", {})
     # the comparisons need no precision: fewer pairs, tracks and knots (a few times cheaper)
     look = _sample(pairs, QUICK_PAIRS, QUICK_TRACKS)
-    look_settings = replace(settings, knots_per_frame=min(settings.knots_per_frame, 2.0),
-                            iterations=min(settings.iterations, 3))
+    look_settings = _quick(settings)
     sim_rms, sim_best_rms = _look_misfits(look, clock, width, similarity, look_settings)
     if lens.given:
         rotation = lens.rotation(width, height)
