@@ -37,7 +37,7 @@ _stopped_by = {"signal": signal.SIGINT}  # which signal stopped the run (SIGINT 
 
 @app.callback()
 def _root(debug: bool = flag(DEBUG_OPTION, help="Show full tracebacks on errors "
-                                                                "(anywhere on the command line).")):
+                                                  "(anywhere on the command line).")):
     """Measure and remove rolling-shutter skew in footage."""
     # the option is read by `main` from the arguments, before any command runs
 

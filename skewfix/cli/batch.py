@@ -9,7 +9,7 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.options import flag, distortion_option, focal_option, hfov_option, model_option
+from skewfix.cli.options import distortion_option, flag, focal_option, hfov_option, model_option
 from skewfix.errors import UsageProblem
 
 

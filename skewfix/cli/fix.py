@@ -8,7 +8,7 @@ import typer
 
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
-from skewfix.cli.options import (flag, choice, distortion_option, focal_option, frames_option, hfov_option,
+from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
                                  model_and_lens, model_option)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
@@ -53,7 +53,7 @@ def fix_command(
                                              help="Pattern (matte.%04d.png) for per-frame mattes of filled pixels."),
     report: Optional[str] = typer.Option(None, "--report", help="Write a self-contained HTML report."),
     force: bool = flag("--force", help="Replace OUTPUT (a sequence as a whole) and the other "
-                                                      "outputs if they exist."),
+                                       "outputs if they exist."),
     quiet: bool = flag("--quiet", "-q", help="No progress bar."),
 ):
     """Remove rolling-shutter skew (lean, stretch, wobble) from INPUT and write OUTPUT.

@@ -13,7 +13,7 @@ import numpy as np
 import typer
 
 from skewfix.cli import app
-from skewfix.cli.options import (flag, choice, distortion_option, focal_option, frames_option, hfov_option,
+from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
                                  model_and_lens, model_option)
 from skewfix.files import write_whole
 from skewfix.cli.progress import TerminalProgress

@@ -14,7 +14,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, solve_with_model
-from skewfix.cli.options import (flag, choice, distortion_option, focal_option, frames_option, hfov_option,
+from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
                                  model_and_lens, model_option)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, UsageProblem

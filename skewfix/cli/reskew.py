@@ -10,7 +10,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
-from skewfix.cli.options import flag, choice
+from skewfix.cli.options import choice, flag
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
