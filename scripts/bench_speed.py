@@ -123,6 +123,18 @@ def clip_specs(quick: bool) -> dict[str, ClipSpec]:
 
 # -- the two jobs, each run in a child process ----------------------------------------
 
+def encoder_like(out, video, codec: str):
+    """An output video stream of ``out`` with ``video``'s size, pixel format and time base,
+    and fix's encoder settings for ``codec``."""
+    encoder, options = ENCODE[codec]
+    stream = out.add_stream(encoder, rate=video.average_rate)
+    stream.width, stream.height = video.codec_context.width, video.codec_context.height
+    stream.pix_fmt = video.codec_context.pix_fmt
+    stream.codec_context.time_base = video.time_base
+    stream.options = dict(options)
+    return stream
+
+
 def plain_transcode(source: str, target: str, codec: str, pictures: list | None = None) -> int:
     """Decode every frame and encode it again with the same encoder settings as fix; returns frames.
 
@@ -135,15 +147,10 @@ def plain_transcode(source: str, target: str, codec: str, pictures: list | None 
     import av
     from av.video.frame import PictureType
 
-    encoder, options = ENCODE[codec]
     with av.open(source) as inp, av.open(target, "w") as out:
         video = inp.streams.video[0]
         video.thread_type = "AUTO"  # as skewfix's decoder does
-        stream = out.add_stream(encoder, rate=video.average_rate)
-        stream.width, stream.height = video.codec_context.width, video.codec_context.height
-        stream.pix_fmt = video.codec_context.pix_fmt
-        stream.codec_context.time_base = video.time_base
-        stream.options = dict(options)
+        stream = encoder_like(out, video, codec)
         frames = 0
         for frame in inp.decode(video):
             picture = frame if pictures is None else pictures[frames]
@@ -191,7 +198,6 @@ def bare_job(source: str, target: str, codec: str, interpolation: str, track: bo
 
     cv2.setNumThreads(1)
     flag = {"linear": cv2.INTER_LINEAR, "cubic": cv2.INTER_CUBIC}[interpolation]
-    encoder, options = ENCODE[codec]
     gx, gy = np.meshgrid(np.linspace(40, 920, 18), np.linspace(30, 500, 16))
     pts = np.float32(np.stack([gx.ravel(), gy.ravel()], 1)).reshape(-1, 1, 2)  # 288 points
     start, cpu = time.perf_counter(), time.process_time()
@@ -199,11 +205,7 @@ def bare_job(source: str, target: str, codec: str, interpolation: str, track: bo
     with av.open(source) as inp, av.open(target, "w") as out:
         video = inp.streams.video[0]
         video.thread_type = "SLICE"
-        stream = out.add_stream(encoder, rate=video.average_rate)
-        stream.width, stream.height = video.codec_context.width, video.codec_context.height
-        stream.pix_fmt = video.codec_context.pix_fmt
-        stream.codec_context.time_base = video.time_base
-        stream.options = dict(options)
+        stream = encoder_like(out, video, codec)
         for frame in inp.decode(video):
             planes = [np.frombuffer(p, np.uint8 if p.line_size < 2 * p.width else np.uint16)
                       .reshape(p.height, -1)[:, :p.width] for p in frame.planes]
@@ -732,7 +734,8 @@ def limit_table(spec: ClipSpec, repeats: int, work: Path) -> None:
     bare stages alone cost more than a target over the floor, no fix built from them meets it.
     """
     spec.render()
-    pictures = work / "pictures_limit.mkv"
+    pictures = work / "pictures_limit.mkv"  # fix's default (cubic) pictures serve both floors: x264 costs
+    # the same within a few per cent on fix's pictures and the source's, so linear's hardly differ
     run_child(cli_args("fix", str(spec.file), str(pictures), "--readout", f"{spec.readout * 1e3:g}ms",
                        "--codec", "ffv1", "--force", "--quiet"))
     suffix = spec.file.suffix
