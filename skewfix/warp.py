@@ -17,7 +17,6 @@ colour conversion happens.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from contextlib import contextmanager
 from functools import lru_cache
 
 import cv2
@@ -326,7 +325,7 @@ def warp_plane(plane: np.ndarray, wm: "WarpMap", subsample=(1, 1), border: str =
     when some tile needs them. Both use the same
     interpolation and border, so the two paths agree within OpenCV's fixed-point
     sampling (1/32 px). ``strips``: `StripAffines.of` the same map and plane size, when
-    several planes share it (U and V). Cubic goes through float32 (see `_float_working`).
+    several planes share it (U and V). Cubic goes through float32 (`_TileWriter`).
     """
     h, w = plane.shape[:2]
     out = np.empty_like(plane) if dst is None else dst
@@ -334,16 +333,20 @@ def warp_plane(plane: np.ndarray, wm: "WarpMap", subsample=(1, 1), border: str =
     interp = INTERPOLATIONS[interpolation]
     maps = None
     strips = strips or StripAffines.of(wm, w, h, subsample)
-    with _float_working(plane, out, interpolation, pool) as (src, target):
-        for r0, r1, c0, c1, matrix in strips.tiles:
-            if matrix is not None:
-                cv2.warpAffine(src, matrix, (int(c1 - c0), int(r1 - r0)), dst=target[r0:r1, c0:c1],
-                               flags=interp | cv2.WARP_INVERSE_MAP, borderMode=mode, borderValue=fill)
-                continue
+    tile_rows = max((r1 - r0 for r0, r1, *_ in strips.tiles), default=0)
+    writer = _TileWriter(plane, out, interpolation, tile_rows, pool)
+    for r0, r1, c0, c1, matrix in strips.tiles:
+        target = writer.target(r0, r1, c0, c1)
+        if matrix is not None:
+            cv2.warpAffine(writer.source, matrix, (int(c1 - c0), int(r1 - r0)), dst=target,
+                           flags=interp | cv2.WARP_INVERSE_MAP, borderMode=mode, borderValue=fill)
+        else:
             if maps is None:
                 maps = wm.full(w, h, subsample, pool=pool)
-            cv2.remap(src, maps[0][r0:r1, c0:c1], maps[1][r0:r1, c0:c1], interp, dst=target[r0:r1, c0:c1],
+            cv2.remap(writer.source, maps[0][r0:r1, c0:c1], maps[1][r0:r1, c0:c1], interp, dst=target,
                       borderMode=mode, borderValue=fill)
+        writer.store(target, r0, r1, c0, c1)
+    writer.release()
     if maps is not None and pool is not None:
         pool.give(maps[0].base, maps[1].base)
     return out
@@ -353,43 +356,63 @@ def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, border:
                 interpolation: str = "cubic", dst: np.ndarray | None = None) -> np.ndarray:
     """Resample one plane (uint8/uint16/float32, 1-4 channels) at its own depth.
 
-    ``cubic`` is OpenCV's cubic convolution (Keys, 1981), worked in float32 (see
-    `_float_working`); ``linear`` is bilinear.
+    ``cubic`` is OpenCV's cubic convolution (Keys, 1981), worked in float32
+    (`_TileWriter`); ``linear`` is bilinear.
     ``dst``, if given, receives the result (same shape and dtype as ``plane``).
     """
     mode = cv2.BORDER_CONSTANT if border == "black" else cv2.BORDER_REPLICATE
     out = np.empty_like(plane) if dst is None else dst
-    with _float_working(plane, out, interpolation) as (src, target):
-        cv2.remap(src, map_x, map_y, INTERPOLATIONS[interpolation], dst=target, borderMode=mode, borderValue=fill)
+    h, w = plane.shape[:2]
+    writer = _TileWriter(plane, out, interpolation, h)
+    target = writer.target(0, h, 0, w)
+    cv2.remap(writer.source, map_x, map_y, INTERPOLATIONS[interpolation], dst=target, borderMode=mode,
+              borderValue=fill)
+    writer.store(target, 0, h, 0, w)
     return out
 
 
 _SATURATING = {np.dtype(np.uint8): cv2.CV_8U, np.dtype(np.uint16): cv2.CV_16U}
 
 
-@contextmanager
-def _float_working(plane: np.ndarray, out: np.ndarray, interpolation: str, pool=None):
-    """(source, target) to resample ``plane`` into ``out``: float32 copies for cubic on 8/16-bit planes.
+class _TileWriter:
+    """Where the tiles of a resampled plane are read from and written to.
 
     OpenCV's cubic convolution runs faster on float32 than on 8- or 16-bit
     planes (one thread, a 1080p plane: about 12 against 15-16 ms), and the
     result, rounded and saturated back to the plane's depth, is the same to the
-    code value on every test image (tests/test_warp.py; DEVELOPERS.md); the two
-    conversions cost well under 1 ms. Linear is faster at the plane's own
-    depth, so it and float planes resample in place. The result is written to
-    ``out`` when the block ends.
+    code value (tests/test_warp.py; DEVELOPERS.md). So for cubic on such a plane
+    the source is a float32 copy, each tile is resampled into a float32 scratch
+    of ``tile_rows`` rows and converted into ``out`` (both conversions together
+    cost well under 1 ms a 1080p plane). Linear is faster at the plane's own
+    depth, so it and float planes are read and written in place.
     """
-    depth = _SATURATING.get(plane.dtype)
-    if interpolation != "cubic" or depth is None:
-        yield plane, out
-        return
-    src, target = (np.empty(plane.shape, np.float32) if pool is None else pool.take(plane.shape, np.float32)
-                   for _ in range(2))
-    np.copyto(src, plane)
-    yield src, target
-    cv2.add(target, 0.0, dst=out, dtype=depth)  # rounds to nearest and saturates, as cv2 does at 8/16 bit
-    if pool is not None:
-        pool.give(src, target)
+
+    def __init__(self, plane: np.ndarray, out: np.ndarray, interpolation: str, tile_rows: int, pool=None):
+        self.out, self.pool = out, pool
+        self.depth = _SATURATING.get(plane.dtype) if interpolation == "cubic" else None
+        self.source, self.scratch = plane, None
+        if self.depth is not None:
+            self.source = self._take(plane.shape)
+            np.copyto(self.source, plane)
+            self.scratch = self._take((tile_rows,) + plane.shape[1:])
+
+    def _take(self, shape) -> np.ndarray:
+        return np.empty(shape, np.float32) if self.pool is None else self.pool.take(shape, np.float32)
+
+    def target(self, r0, r1, c0, c1) -> np.ndarray:
+        """The array the tile (rows r0:r1, columns c0:c1 of the output) is resampled into."""
+        if self.depth is None:
+            return self.out[r0:r1, c0:c1]
+        return self.scratch[:r1 - r0, :c1 - c0]
+
+    def store(self, target: np.ndarray, r0, r1, c0, c1) -> None:
+        """Put a resampled tile into the output (rounded to nearest and saturated, as cv2 does)."""
+        if self.depth is not None:
+            cv2.add(target, 0.0, dst=self.out[r0:r1, c0:c1], dtype=self.depth)
+
+    def release(self) -> None:
+        if self.depth is not None and self.pool is not None:
+            self.pool.give(self.source, self.scratch)
 
 
 def outside_matte(map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
