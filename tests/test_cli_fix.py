@@ -119,6 +119,17 @@ def test_help_explains_the_focal_length_forms(capsys):
         assert words in text, words
 
 
+def test_no_on_off_option_shows_a_value_placeholder(capsys):
+    """An on/off option takes no value, so its help must not show one (typer would print
+    ``<bool>``): every command's help, --help itself included (POSIX.1 "Utility Argument
+    Syntax" shows an option-argument only for options that take one; from memory)."""
+    for command in ([], ["fix"], ["measure"], ["reskew"], ["preview"], ["batch"], ["cameras"],
+                    ["cameras", "list"], ["demo"]):
+        assert main([*command, "--help"]) == 0
+        text = capsys.readouterr().out
+        assert "--help" in text and "<bool>" not in text, command
+
+
 def motion_document(path):
     import json
 

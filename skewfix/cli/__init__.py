@@ -79,16 +79,34 @@ def _click_exceptions():
     return exceptions
 
 
+def _help_without_placeholder(command) -> None:
+    """typer prints ``<bool>`` beside every command's --help, as if it took a value; show none
+    there, as for skewfix's own flags (`skewfix.cli.options.flag`), on ``command`` and below it."""
+    made = command.get_help_option
+
+    def get_help_option(ctx):
+        option = made(ctx)
+        if option is not None:
+            option.metavar = ""
+        return option
+
+    command.get_help_option = get_help_option
+    for sub in getattr(command, "commands", {}).values():
+        _help_without_placeholder(sub)
+
+
 def main(argv: list[str] | None = None) -> int:
     click = _click_exceptions()
 
     _register_commands()
+    command = typer.main.get_command(app)
+    _help_without_placeholder(command)
     signal.signal(signal.SIGTERM, _on_terminate)
     _stopped_by["signal"] = signal.SIGINT
     argv, asked = split_debug(list(sys.argv[1:] if argv is None else argv))
     debug = asked or os.environ.get("SKEWFIX_DEBUG") == "1"
     try:
-        status = app(args=argv, prog_name="skewfix", standalone_mode=False)
+        status = command(args=argv, prog_name="skewfix", standalone_mode=False)
     except SkewfixError as exc:
         if debug:
             raise
