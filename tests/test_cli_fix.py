@@ -119,15 +119,18 @@ def test_help_explains_the_focal_length_forms(capsys):
         assert words in text, words
 
 
-def test_no_on_off_option_shows_a_value_placeholder(capsys):
+def test_option_placeholders_say_what_to_give(capsys):
     """An on/off option takes no value, so its help must not show one (typer would print
-    ``<bool>``): every command's help, --help itself included (POSIX.1 "Utility Argument
-    Syntax" shows an option-argument only for options that take one; from memory)."""
+    ``<bool>``), --help itself included; an option that takes one names what to give, not a
+    Python type (POSIX.1 "Utility Argument Syntax" shows an option-argument only for options
+    that take one, by a name that says what it is; from memory). Every command's help."""
     for command in ([], ["fix"], ["measure"], ["reskew"], ["preview"], ["batch"], ["cameras"],
                     ["cameras", "list"], ["demo"]):
         assert main([*command, "--help"]) == 0
         text = capsys.readouterr().out
         assert "--help" in text and "<bool>" not in text, command
+        # an option that takes a value names it (TIME, FILE.json...), not its Python type
+        assert "<str>" not in text.split("Options")[-1] and "<int>" not in text, command
 
 
 def motion_document(path):

@@ -40,7 +40,8 @@ def render_demo_clip(path: Path) -> None:
 
 @app.command("demo")
 def demo_command(
-    folder: Path = typer.Option(Path("clips"), "--folder", help="Where the demo clip and results go."),
+    folder: Path = typer.Option(Path("clips"), "--folder", metavar="FOLDER",
+                                help="Where the demo clip and results go."),
     quiet: bool = flag("--quiet", "-q", help="No progress bar."),
 ):
     """Render a demo whip pan (an invented harbour), correct it, write a before/after still."""

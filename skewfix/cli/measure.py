@@ -288,31 +288,34 @@ def summary_lines(estimate) -> list[str]:
 @app.command("measure", help=HELP)
 def measure_command(
     clip: str = typer.Argument(..., help="Test clip or shot (or a numbered image sequence with --fps)."),
-    method: str = typer.Option("auto", "--method", "-m", help="auto, flicker, pan or motion."),
+    method: str = typer.Option("auto", "--method", "-m", metavar="METHOD",
+                               help="auto, flicker, pan or motion."),
     light_hz: Optional[str] = typer.Option(
-        None, "--light-hz",
+        None, "--light-hz", metavar="HZ",
         help="Flicker frequency of the light's intensity, Hz: 100/120 for mains at 50/60 Hz (twice the "
              "mains frequency: 100, not 50), or 'auto' to pick 100 or 120 from the band drift. "
              "Flickering lights can trigger photosensitive seizures."),
     flat: Optional[str] = typer.Option(
-        None, "--flat",
+        None, "--flat", metavar="CLIP",
         help="A flat-field take for the flicker method: the same wall in the same camera mode under "
              "steady light (or at an exposure of a whole number of flicker periods), divided out so the "
              "wall's own shading cannot pass for still bands."),
-    json_path: Optional[str] = typer.Option(None, "--json", help="Also write the result as JSON here."),
-    plot: Optional[str] = typer.Option(None, "--plot", help="Write a PNG to check the result by eye."),
-    save_camera: Optional[str] = typer.Option(None, "--save-camera",
+    json_path: Optional[str] = typer.Option(None, "--json", metavar="FILE.json",
+                                            help="Also write the result as JSON here."),
+    plot: Optional[str] = typer.Option(None, "--plot", metavar="FILE.png",
+                                       help="Write a PNG to check the result by eye."),
+    save_camera: Optional[str] = typer.Option(None, "--save-camera", metavar="NAME",
                                               help="Save the result as a camera of this name "
                                                    "(for fix --readout NAME)."),
-    exposure: Optional[str] = typer.Option(None, "--exposure",
+    exposure: Optional[str] = typer.Option(None, "--exposure", metavar="TIME",
                                            help="Shutter time of the clip (1/1000, 1ms), to explain "
                                                 "weak flicker bands."),
-    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE", help="Frame rate of an image-sequence input."),
     frames: Optional[str] = frames_option(),
-    save_motion: Optional[str] = typer.Option(None, "--save-motion",
+    save_motion: Optional[str] = typer.Option(None, "--save-motion", metavar="FILE.json",
                                               help="Also solve the clip's motion with the measured readout "
                                                    "and write it (JSON motion file)."),
-    save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv",
+    save_motion_csv: Optional[str] = typer.Option(None, "--save-motion-csv", metavar="FILE.csv",
                                                   help="The same motion as a table, one row per frame (CSV)."),
     model: str = model_option(),
     hfov: Optional[str] = hfov_option(),

@@ -33,7 +33,7 @@ DISTORTION_HELP = "Radial lens distortion K1 or K1,K2 (Brown–Conrady, OpenCV's
 
 
 def model_option(default: Optional[str] = "auto"):
-    return typer.Option(default, "--model", help=MODEL_HELP)
+    return typer.Option(default, "--model", metavar="MODEL", help=MODEL_HELP)
 
 
 def hfov_option():

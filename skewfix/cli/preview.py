@@ -40,20 +40,23 @@ def candidate_readouts(text: str) -> list[str]:
 @app.command("preview")
 def preview_command(
     clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
-    readout: str = typer.Option(..., "--readout", "-r", help="Readout time (18.5ms, 0.0185s, 18500us), "
+    readout: str = typer.Option(..., "--readout", "-r", metavar="TIME",
+                                help="Readout time (18.5ms, 0.0185s, 18500us), "
                                                               "'auto', or a saved camera's name; several, "
                                                               "separated by commas (12ms,16ms,20ms), to "
                                                               "compare them side by side."),
-    frame: Optional[str] = typer.Option(None, "--frame", "-n",
+    frame: Optional[str] = typer.Option(None, "--frame", "-n", metavar="N",
                                         help="Frame to show: its number (a video's first frame is 1, a "
                                              "sequence's frames are its file numbers) or its timecode; "
                                              "default: the first frame used."),
-    out: str = typer.Option(..., "--out", "-o", help="PNG file for the still."),
+    out: str = typer.Option(..., "--out", "-o", metavar="FILE.png", help="PNG file for the still."),
     frames: Optional[str] = frames_option(),
-    line_order: Optional[str] = typer.Option(None, "--line-order", help="top-down (default) or bottom-up."),
-    reference_line: str = typer.Option("middle", "--reference-line", help="middle, top or bottom."),
-    border: str = typer.Option("edge", "--border", help="edge, black or crop."),
-    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of an image-sequence input."),
+    line_order: Optional[str] = typer.Option(None, "--line-order", metavar="ORDER",
+                                             help="top-down (default) or bottom-up."),
+    reference_line: str = typer.Option("middle", "--reference-line", metavar="ROW",
+                                       help="middle, top or bottom."),
+    border: str = typer.Option("edge", "--border", metavar="FILL", help="edge, black or crop."),
+    fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE", help="Frame rate of an image-sequence input."),
     force: bool = flag("--force", help="Replace OUT if it exists."),
     quiet: bool = flag("--quiet", "-q", help="No progress bar."),
     model: str = model_option(),

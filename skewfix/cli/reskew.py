@@ -22,16 +22,20 @@ RESKEW_BORDERS = ("edge", "black")
 def reskew_command(
     input: str = typer.Argument(..., help="Clean clip or numbered sequence (CG, a corrected plate)."),
     output: str = typer.Argument(..., help="Where to write the clip or sequence with the rolling shutter put back."),
-    motion: str = typer.Option(..., "--motion", "-m", help="Motion file written by 'fix --save-motion'."),
-    codec: Optional[str] = typer.Option(None, "--codec", help="h264, hevc, prores or ffv1 for video output "
+    motion: str = typer.Option(..., "--motion", "-m", metavar="FILE.json",
+                               help="Motion file written by 'fix --save-motion'."),
+    codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
+                                        help="h264, hevc, prores or ffv1 for video output "
                                                                "(default: as the input)."),
-    crf: Optional[int] = typer.Option(None, "--crf", help="x264/x265 quality (default 16)."),
-    fps: Optional[str] = typer.Option(None, "--fps", help="Frame rate of a sequence input "
+    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", help="x264/x265 quality (default 16)."),
+    fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE", help="Frame rate of a sequence input "
                                                            "(default: the motion file's)."),
-    depth: Optional[int] = typer.Option(None, "--depth", help="8 or 16 bits for PNG/TIFF output (default: as "
+    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
+                                        help="8 or 16 bits for PNG/TIFF output (default: as "
                                                                "the input; deeper than 8 goes to 16); 16 (half) "
                                                                "or 32 (float) for EXR."),
-    border: str = typer.Option("edge", "--border", help="Fill for pixels with no source: edge or black."),
+    border: str = typer.Option("edge", "--border", metavar="FILL",
+                               help="Fill for pixels with no source: edge or black."),
     overscan: Optional[str] = typer.Option(None, "--overscan", metavar="1.1|96px|96,54px",
                                            help="INPUT is larger than the plate, centred on it: by a factor "
                                                 "(1.1) or a margin on each side in pixels; OUTPUT keeps INPUT's size."),
