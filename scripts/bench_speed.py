@@ -778,12 +778,23 @@ def limit_table(spec: ClipSpec, repeats: int, work: Path) -> None:
 
 # -- cost of each stage on one core ------------------------------------------------------
 
-def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
+def best_of(passes: int, run, clock=time.thread_time) -> float:
+    """The least ``clock`` time (s) of ``passes`` calls of ``run()``: the least disturbed one."""
+    best = float("inf")
+    for _ in range(passes):
+        t = clock()
+        run()
+        best = min(best, clock() - t)
+    return best
+
+
+def stage_costs(spec: ClipSpec, frames: int = 24, passes: int = 3) -> None:
     """CPU milliseconds per frame of each stage run alone on one thread, and what they imply.
 
     Buffers are reused and every stage is warmed up first, so page faults and
-    imports are left out. The floor is the fix/plain ratio if both jobs kept
-    every core busy: (plain CPU + skewfix's own stages) / plain CPU.
+    imports are left out; each stage is timed ``passes`` times over the same
+    frames and the least is kept. The floor is the fix/plain ratio if both jobs
+    kept every core busy: (plain CPU + skewfix's own stages) / plain CPU.
     """
     import av
     import cv2
@@ -799,64 +810,70 @@ def stage_costs(spec: ClipSpec, frames: int = 24) -> None:
 
     spec.render()
     cv2.setNumThreads(1)
-    with av.open(str(spec.file)) as c:
-        stream = c.streams.video[0]
-        stream.thread_type = "SLICE"
-        t = time.thread_time()
-        decoded = [f for _, f in zip(range(frames), c.decode(stream))]
-        cost = {"decode (FFmpeg, one thread)": time.thread_time() - t}
+    cost = {}
+
+    def decode():
+        with av.open(str(spec.file)) as c:
+            stream = c.streams.video[0]
+            stream.thread_type = "SLICE"
+            return [f for _, f in zip(range(frames), c.decode(stream))]
+
+    decoded = decode()
+    cost["decode (FFmpeg, one thread)"] = best_of(passes, decode)
     pool = PlanePool(limit=8)
-    frame_planes(decoded[0], pool)
-    t = time.thread_time()
-    planes = []
-    for f in decoded:
-        planes.append(frame_planes(f, pool))
-        pool.give(*planes[-1][0])
-    cost["copy planes out of the decoder"] = time.thread_time() - t
+
+    def copy_planes():
+        for f in decoded:
+            pool.give(*frame_planes(f, pool)[0])
+
+    copy_planes()
+    cost["copy planes out of the decoder"] = best_of(passes, copy_planes)
     planes = [frame_planes(f) for f in decoded]
-    tracker, pairs = PairTracker(), []
-    t = time.thread_time()
-    for p, _subs in planes:
-        obs = tracker.push(p[0])
-        if obs is not None:
-            pairs.append(obs)
-    cost["track (proxy, corners, phase seed, LK both ways)"] = time.thread_time() - t
+    pairs = []
+
+    def track():
+        tracker = PairTracker()
+        pairs[:] = [obs for obs in (tracker.push(p[0]) for p, _subs in planes) if obs is not None]
+
+    track()
+    cost["track (proxy, corners, phase seed, LK both ways)"] = best_of(passes, track)
     clock = RowClock(np.arange(frames) / float(RATE), spec.height, spec.readout)
     vinfo = VideoInfo(str(spec.file), spec.width, spec.height, "yuv420p", 8, "h264", None, RATE, Fraction(1, 25),
                       frames, None)
     window, margin = window_for(vinfo)
-    fit_motion(pairs, clock, spec.width)  # warm-up (imports SciPy)
-    t = time.thread_time()
-    model = fit_motion(pairs, clock, spec.width)
+    model = fit_motion(pairs, clock, spec.width)  # warm-up
     cost[f"fit (x{(window + 2 * margin) / window:.2f}: windows overlap)"] = \
-        (time.thread_time() - t) * (window + 2 * margin) / window
-    t = time.thread_time()
+        best_of(passes, lambda: fit_motion(pairs, clock, spec.width)) * (window + 2 * margin) / window
     maps = [correction_map(model, clock, k) for k in range(frames)]
-    cost["coarse warp map"] = time.thread_time() - t
+    cost["coarse warp map"] = best_of(passes, lambda: [correction_map(model, clock, k) for k in range(frames)])
     for interp in ("cubic", "linear"):
         warper = FrameWarper.__new__(FrameWarper)
         warper.settings, warper.info, warper.pool = RenderSettings(interpolation=interp), vinfo, PlanePool()
-        pool.give(*warper.apply_map(maps[0], planes[0][0], planes[0][1]))
-        t = time.thread_time()
-        for wm, (p, subs) in zip(maps, planes):
-            warper.pool.give(*warper.apply_map(wm, p, subs))
-        cost[f"upsample maps + remap planes ({interp})"] = time.thread_time() - t
+
+        def warp():
+            for wm, (p, subs) in zip(maps, planes):
+                warper.pool.give(*warper.apply_map(wm, p, subs))
+
+        warp()
+        cost[f"upsample maps + remap planes ({interp})"] = best_of(passes, warp)
     encoder, options = ENCODE[spec.codec]
-    with tempfile.TemporaryDirectory() as tmp, av.open(str(Path(tmp) / "e.mp4"), "w") as out:
-        st = out.add_stream(encoder, rate=RATE)
-        st.width, st.height, st.pix_fmt, st.options = spec.width, spec.height, "yuv420p", dict(options)
-        cpu = time.process_time()
-        for i, f in enumerate(decoded):
-            f.pts = i
-            for packet in st.encode(f):
+
+    def encode():
+        with tempfile.TemporaryDirectory() as tmp, av.open(str(Path(tmp) / "e.mp4"), "w") as out:
+            st = out.add_stream(encoder, rate=RATE)
+            st.width, st.height, st.pix_fmt, st.options = spec.width, spec.height, "yuv420p", dict(options)
+            for i, f in enumerate(decoded):
+                f.pts = i
+                for packet in st.encode(f):
+                    out.mux(packet)
+            for packet in st.encode():
                 out.mux(packet)
-        for packet in st.encode():
-            out.mux(packet)
-        cost["encode (x264, all its threads)"] = time.process_time() - cpu
+
+    cost["encode (x264, all its threads)"] = best_of(passes, encode, time.process_time)
     per = {k: 1e3 * v / frames for k, v in cost.items()}
     print()
     print(f"cost of each stage, {spec.label}, {frames} frames, CPU ms per frame on one thread "
-          "(buffers reused, warmed up)")
+          f"(buffers reused, warmed up, least of {passes} passes)")
     for k, v in per.items():
         print(f"  {k:48} {v:7.2f}")
     plain = per["decode (FFmpeg, one thread)"] + per["encode (x264, all its threads)"]
