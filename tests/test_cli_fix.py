@@ -119,6 +119,22 @@ def test_help_explains_the_focal_length_forms(capsys):
         assert words in text, words
 
 
+@pytest.mark.parametrize("argv", [
+    ("fix", "{clip}", "{tmp}/o.mp4", "--readout", "10ms", "--crf", "abc"),
+    ("fix", "{clip}", "{tmp}/o.mp4", "--readout", "10ms", "--depth", "16bit"),
+    ("reskew", "{clip}", "{tmp}/o.mp4", "--motion", "{tmp}/m.json", "--crf", "1.5"),
+    ("batch", "{clip}", "--out", "{tmp}/out", "--readout", "10ms", "--workers", "two"),
+])
+def test_a_whole_number_option_given_something_else(small_clip, tmp_path, capsys, argv):
+    # common practice: exit 2, one line that names the option and repeats what was typed
+    argv = [part.format(clip=small_clip, tmp=tmp_path) for part in argv]
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and argv[-2] in err[0] and f"not {argv[-1]!r}" in err[0], err
+    assert "valid integer" not in err[0]  # the type checker's words, not ours
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_option_placeholders_say_what_to_give(capsys):
     """An on/off option takes no value, so its help must not show one (typer would print
     ``<bool>``), --help itself included; an option that takes one names what to give, not a

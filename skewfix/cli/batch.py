@@ -9,7 +9,7 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.options import distortion_option, flag, focal_option, hfov_option, model_option
+from skewfix.cli.options import distortion_option, flag, focal_option, hfov_option, model_option, whole_number
 from skewfix.errors import UsageProblem
 
 
@@ -63,14 +63,15 @@ def batch_command(
     border: Optional[str] = typer.Option(None, "--border", metavar="FILL", help="edge, black or crop."),
     codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
                                         help="h264, hevc, prores or ffv1 (default: as the source)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", help="x264/x265 quality (default 16)."),
+    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
+                                      help="x264/x265 quality (default 16)."),
     preset: Optional[str] = typer.Option(None, "--preset", metavar="NAME",
                                          help="x264/x265 speed preset (default medium)."),
     model: Optional[str] = model_option(None),
     hfov: Optional[str] = hfov_option(),
     focal_length: Optional[str] = focal_option(),
     lens_distortion: Optional[str] = distortion_option(),
-    workers: Optional[int] = typer.Option(None, "--workers", "-j", metavar="N",
+    workers: Optional[int] = typer.Option(None, "--workers", "-j", metavar="N", parser=whole_number,
                                           help="Clips corrected at once on this machine (default: half the cores)."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS",
                                             help="Address of a Dask scheduler (tcp://host:8786): one task per clip."),

@@ -9,7 +9,7 @@ import typer
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
 from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
-                                 model_and_lens, model_option)
+                                 model_and_lens, model_option, whole_number)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
@@ -35,14 +35,14 @@ def fix_command(
                                       help="Resampling of luma/RGB: cubic (sharper, default) or linear (faster)."),
     codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
                                         help="h264, hevc, prores or ffv1 (default: as the source)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N",
+    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
                                       help="x264/x265 quality (default 16, visually lossless)."),
     preset: Optional[str] = typer.Option(None, "--preset", metavar="NAME",
                                          help="x264/x265 speed preset (default medium)."),
     frames: Optional[str] = frames_option(),
     fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE",
                                       help="Frame rate of an image-sequence input (e.g. 24000/1001)."),
-    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
+    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS", parser=whole_number,
                                         help="8 or 16 bits for PNG/TIFF output (default: as the source; "
                                              "10-bit video goes to 16); 16 (half) or 32 (float) for EXR."),
     save_motion: Optional[str] = typer.Option(None, "--save-motion", metavar="FILE.json",
@@ -53,7 +53,7 @@ def fix_command(
                                             help="Folder for per-frame correct/reskew maps (float TIFF or EXR)."),
     map_format: str = typer.Option("tiff", "--map-format", metavar="FORMAT",
                                    help="Maps as tiff (32-bit float, x y 0) or exr "
-                                                                 "(2-channel float: R is x, G is y)."),
+                                        "(2-channel float: R is x, G is y)."),
     map_units: str = typer.Option("pixels", "--map-units", metavar="UNITS",
                                   help="Maps in pixels (absolute source position, origin top-left) or "
                                        "normalized (0-1 across the frame, origin bottom-left, y up)."),

@@ -16,6 +16,15 @@ def choice(value: str, allowed, option: str) -> str:
     return value
 
 
+def whole_number(value: str) -> int:
+    """typer ``parser`` for an option that takes a whole number (--crf, --depth, --workers): the
+    error names the value in skewfix's words rather than the type checker's."""
+    try:
+        return int(value)
+    except ValueError:
+        raise typer.BadParameter(f"must be a whole number, not {value!r}") from None
+
+
 def flag(*names: str, help: str):
     """An on/off option (False unless given). Its help shows no value placeholder: typer would
     print ``<bool>``, as if the flag took a value."""

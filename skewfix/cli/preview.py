@@ -42,10 +42,10 @@ def preview_command(
     clip: str = typer.Argument(..., help="Clip or numbered image sequence."),
     readout: str = typer.Option(..., "--readout", "-r", metavar="TIME",
                                 help="Readout time (18.5ms, 0.0185s, 18500us), "
-                                                              "'auto', or a saved camera's name; several, "
-                                                              "separated by commas (12ms,16ms,20ms), to "
-                                                              "compare them side by side."),
-    frame: Optional[str] = typer.Option(None, "--frame", "-n", metavar="N",
+                                     "'auto', or a saved camera's name; several, "
+                                     "separated by commas (12ms,16ms,20ms), to "
+                                     "compare them side by side."),
+    frame: Optional[str] = typer.Option(None, "--frame", "-n", metavar="FRAME",
                                         help="Frame to show: its number (a video's first frame is 1, a "
                                              "sequence's frames are its file numbers) or its timecode; "
                                              "default: the first frame used."),

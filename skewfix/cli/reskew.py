@@ -10,7 +10,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
-from skewfix.cli.options import choice, flag
+from skewfix.cli.options import choice, flag, whole_number
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
@@ -26,14 +26,15 @@ def reskew_command(
                                help="Motion file written by 'fix --save-motion'."),
     codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
                                         help="h264, hevc, prores or ffv1 for video output "
-                                                               "(default: as the input)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", help="x264/x265 quality (default 16)."),
-    fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE", help="Frame rate of a sequence input "
-                                                           "(default: the motion file's)."),
-    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS",
+                                             "(default: as the input)."),
+    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
+                                      help="x264/x265 quality (default 16)."),
+    fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE",
+                                      help="Frame rate of a sequence input (default: the motion file's)."),
+    depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS", parser=whole_number,
                                         help="8 or 16 bits for PNG/TIFF output (default: as "
-                                                               "the input; deeper than 8 goes to 16); 16 (half) "
-                                                               "or 32 (float) for EXR."),
+                                             "the input; deeper than 8 goes to 16); 16 (half) "
+                                             "or 32 (float) for EXR."),
     border: str = typer.Option("edge", "--border", metavar="FILL",
                                help="Fill for pixels with no source: edge or black."),
     overscan: Optional[str] = typer.Option(None, "--overscan", metavar="1.1|96px|96,54px",
