@@ -9,7 +9,8 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.options import distortion_option, flag, focal_option, hfov_option, model_option, whole_number
+from skewfix.cli.options import (codec_option, crf_option, distortion_option, flag, focal_option, hfov_option,
+                                 model_option, preset_option, whole_number)
 from skewfix.errors import UsageProblem
 
 
@@ -61,12 +62,9 @@ def batch_command(
     reference_line: Optional[str] = typer.Option(None, "--reference-line", metavar="ROW",
                                                  help="middle, top or bottom."),
     border: Optional[str] = typer.Option(None, "--border", metavar="FILL", help="edge, black or crop."),
-    codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
-                                        help="h264, hevc, prores or ffv1 (default: as the source)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
-                                      help="x264/x265 quality (default 16)."),
-    preset: Optional[str] = typer.Option(None, "--preset", metavar="NAME",
-                                         help="x264/x265 speed preset (default medium)."),
+    codec: Optional[str] = codec_option(),
+    crf: Optional[int] = crf_option(),
+    preset: Optional[str] = preset_option(),
     model: Optional[str] = model_option(None),
     hfov: Optional[str] = hfov_option(),
     focal_length: Optional[str] = focal_option(),

@@ -8,8 +8,9 @@ import typer
 
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
-from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
-                                 model_and_lens, model_option, whole_number)
+from skewfix.cli.options import (choice, codec_option, crf_option, distortion_option, flag, focal_option,
+                                 frames_option, hfov_option, model_and_lens, model_option, preset_option,
+                                 whole_number)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
@@ -33,12 +34,9 @@ def fix_command(
     lens_distortion: Optional[str] = distortion_option(),
     interpolation: str = typer.Option("cubic", "--interpolation", metavar="KERNEL",
                                       help="Resampling of luma/RGB: cubic (sharper, default) or linear (faster)."),
-    codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
-                                        help="h264, hevc, prores or ffv1 (default: as the source)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
-                                      help="x264/x265 quality (default 16, visually lossless)."),
-    preset: Optional[str] = typer.Option(None, "--preset", metavar="NAME",
-                                         help="x264/x265 speed preset (default medium)."),
+    codec: Optional[str] = codec_option(),
+    crf: Optional[int] = crf_option("x264/x265 quality (default 16, visually lossless)."),
+    preset: Optional[str] = preset_option(),
     frames: Optional[str] = frames_option(),
     fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE",
                                       help="Frame rate of an image-sequence input (e.g. 24000/1001)."),

@@ -31,6 +31,19 @@ def flag(*names: str, help: str):
     return typer.Option(False, *names, help=help, metavar="")
 
 
+# The encoder options, shared by fix, batch and reskew.
+def codec_option(help: str = "h264, hevc, prores or ffv1 (default: as the source)."):
+    return typer.Option(None, "--codec", metavar="CODEC", help=help)
+
+
+def crf_option(help: str = "x264/x265 quality (default 16)."):
+    return typer.Option(None, "--crf", metavar="N", parser=whole_number, help=help)
+
+
+def preset_option():
+    return typer.Option(None, "--preset", metavar="NAME", help="x264/x265 speed preset (default medium).")
+
+
 # The motion model and lens options, shared by fix, measure, preview and batch.
 MODEL_HELP = ("Motion model: auto (default: the similarity unless a wide lens turning is seen), "
               "similarity (pan, tilt, roll, zoom of the picture) or rotation (a camera turning "

@@ -10,7 +10,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
-from skewfix.cli.options import choice, flag, whole_number
+from skewfix.cli.options import choice, codec_option, crf_option, flag, whole_number
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
@@ -24,11 +24,8 @@ def reskew_command(
     output: str = typer.Argument(..., help="Where to write the clip or sequence with the rolling shutter put back."),
     motion: str = typer.Option(..., "--motion", "-m", metavar="FILE.json",
                                help="Motion file written by 'fix --save-motion'."),
-    codec: Optional[str] = typer.Option(None, "--codec", metavar="CODEC",
-                                        help="h264, hevc, prores or ffv1 for video output "
-                                             "(default: as the input)."),
-    crf: Optional[int] = typer.Option(None, "--crf", metavar="N", parser=whole_number,
-                                      help="x264/x265 quality (default 16)."),
+    codec: Optional[str] = codec_option("h264, hevc, prores or ffv1 for video output (default: as the input)."),
+    crf: Optional[int] = crf_option(),
     fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE",
                                       help="Frame rate of a sequence input (default: the motion file's)."),
     depth: Optional[int] = typer.Option(None, "--depth", metavar="BITS", parser=whole_number,
