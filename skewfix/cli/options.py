@@ -1,4 +1,5 @@
-"""Command-line options shared by several commands: checked choices, the motion model and the lens."""
+"""Command-line options shared by several commands: checked choices, whole numbers, the encoder,
+the motion model and the lens."""
 
 from __future__ import annotations
 
