@@ -9,9 +9,10 @@ inverse warp (adding a rolling shutter to a clean image) needs no iteration:
 row ``y`` of the output is read at ``t(k, y)``.
 
 Maps are computed on a coarse grid as displacements (smooth, small), then
-upsampled bilinearly and added to the identity; ``cv2.remap`` applies them to
-each plane at its own size and bit depth (chroma with the map scaled), so no
-colour conversion happens.
+applied to each plane at its own size (chroma with the map scaled) and written
+at its own bit depth, so no colour conversion happens: strip by strip with
+cv2.warpAffine where the map is affine there, else with cv2.remap from the map
+upsampled bilinearly and added to the identity (`warp_plane`).
 """
 
 from __future__ import annotations
