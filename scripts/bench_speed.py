@@ -149,7 +149,7 @@ def plain_transcode(source: str, target: str, codec: str, pictures: list | None 
 
     with av.open(source) as inp, av.open(target, "w") as out:
         video = inp.streams.video[0]
-        video.thread_type = "AUTO"  # as skewfix's decoder does
+        video.thread_type = "SLICE"  # as skewfix's decoder does (skewfix.decode: slice threads only)
         stream = encoder_like(out, video, codec)
         frames = 0
         for frame in inp.decode(video):
