@@ -9,8 +9,9 @@ from typing import Optional
 import typer
 
 from skewfix.cli import app, fail
-from skewfix.cli.options import (codec_option, crf_option, distortion_option, flag, focal_option, hfov_option,
-                                 model_option, preset_option, whole_number)
+from skewfix.cli.options import (border_option, codec_option, crf_option, distortion_option, flag, focal_option,
+                                 hfov_option, line_order_option, model_option, preset_option, reference_line_option,
+                                 whole_number)
 from skewfix.errors import UsageProblem
 
 
@@ -57,11 +58,9 @@ def batch_command(
                             help="Folder for the corrected clips (made if missing)."),
     readout: Optional[str] = typer.Option(None, "--readout", "-r", metavar="TIME",
                                           help="Readout for clips whose line gives none (as for fix)."),
-    line_order: Optional[str] = typer.Option(None, "--line-order", metavar="ORDER",
-                                             help="top-down (default) or bottom-up."),
-    reference_line: Optional[str] = typer.Option(None, "--reference-line", metavar="ROW",
-                                                 help="middle, top or bottom."),
-    border: Optional[str] = typer.Option(None, "--border", metavar="FILL", help="edge, black or crop."),
+    line_order: Optional[str] = line_order_option(),
+    reference_line: Optional[str] = reference_line_option(None),
+    border: Optional[str] = border_option(None),
     codec: Optional[str] = codec_option(),
     crf: Optional[int] = crf_option(),
     preset: Optional[str] = preset_option(),

@@ -8,9 +8,9 @@ import typer
 
 from skewfix.cameras import plan_readout
 from skewfix.cli import app
-from skewfix.cli.options import (choice, codec_option, crf_option, distortion_option, flag, focal_option,
-                                 frames_option, hfov_option, model_and_lens, model_option, preset_option,
-                                 whole_number)
+from skewfix.cli.options import (border_option, choice, codec_option, crf_option, distortion_option, flag,
+                                 focal_option, frames_option, hfov_option, line_order_option, model_and_lens,
+                                 model_option, preset_option, reference_line_option, whole_number)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES, parse_rate
 from skewfix.warp import BORDERS
@@ -22,12 +22,10 @@ def fix_command(
     readout: str = typer.Option(..., "--readout", "-r", metavar="TIME",
                                 help="Readout time (18.5ms, 0.0185s, 18500us; bare number = ms), "
                                      "'auto' to measure it from this clip, or a saved camera's name."),
-    line_order: Optional[str] = typer.Option(None, "--line-order", metavar="ORDER",
-                                             help="top-down (default) or bottom-up."),
-    reference_line: str = typer.Option("middle", "--reference-line", metavar="ROW",
-                                       help="Row whose instant the corrected frame shows: middle, top or bottom."),
-    border: str = typer.Option("edge", "--border", metavar="FILL",
-                               help="Fill for pixels with no source: edge, black or crop."),
+    line_order: Optional[str] = line_order_option(),
+    reference_line: str = reference_line_option(help="Row whose instant the corrected frame shows: middle, top "
+                                                     "or bottom."),
+    border: str = border_option(help="Fill for pixels with no source: edge, black or crop."),
     model: str = model_option(),
     hfov: Optional[str] = hfov_option(),
     focal_length: Optional[str] = focal_option(),

@@ -32,6 +32,19 @@ def flag(*names: str, help: str):
     return typer.Option(False, *names, help=help, metavar="")
 
 
+# The row timing and the border, shared by fix, preview, batch and reskew.
+def line_order_option():
+    return typer.Option(None, "--line-order", metavar="ORDER", help="top-down (default) or bottom-up.")
+
+
+def reference_line_option(default: Optional[str] = "middle", help: str = "middle, top or bottom."):
+    return typer.Option(default, "--reference-line", metavar="ROW", help=help)
+
+
+def border_option(default: Optional[str] = "edge", help: str = "edge, black or crop."):
+    return typer.Option(default, "--border", metavar="FILL", help=help)
+
+
 # The encoder options, shared by fix, batch and reskew.
 def codec_option(help: str = "h264, hevc, prores or ffv1 (default: as the source)."):
     return typer.Option(None, "--codec", metavar="CODEC", help=help)

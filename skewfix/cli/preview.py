@@ -14,8 +14,9 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, decoded_frame_at, solve_with_model
-from skewfix.cli.options import (choice, distortion_option, flag, focal_option, frames_option, hfov_option,
-                                 model_and_lens, model_option)
+from skewfix.cli.options import (border_option, choice, distortion_option, flag, focal_option, frames_option,
+                                 hfov_option, line_order_option, model_and_lens, model_option,
+                                 reference_line_option)
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, UsageProblem
 from skewfix.rowclock import LINE_ORDERS, REFERENCE_LINES
@@ -51,11 +52,9 @@ def preview_command(
                                              "default: the first frame used."),
     out: str = typer.Option(..., "--out", "-o", metavar="FILE.png", help="PNG file for the still."),
     frames: Optional[str] = frames_option(),
-    line_order: Optional[str] = typer.Option(None, "--line-order", metavar="ORDER",
-                                             help="top-down (default) or bottom-up."),
-    reference_line: str = typer.Option("middle", "--reference-line", metavar="ROW",
-                                       help="middle, top or bottom."),
-    border: str = typer.Option("edge", "--border", metavar="FILL", help="edge, black or crop."),
+    line_order: Optional[str] = line_order_option(),
+    reference_line: str = reference_line_option(),
+    border: str = border_option(),
     fps: Optional[str] = typer.Option(None, "--fps", metavar="RATE", help="Frame rate of an image-sequence input."),
     force: bool = flag("--force", help="Replace OUT if it exists."),
     quiet: bool = flag("--quiet", "-q", help="No progress bar."),

@@ -10,7 +10,7 @@ import typer
 
 from skewfix.cli import app
 from skewfix.cli.deliverables import check_distinct_outputs, check_output_options, count_frames
-from skewfix.cli.options import choice, codec_option, crf_option, flag, whole_number
+from skewfix.cli.options import border_option, choice, codec_option, crf_option, flag, whole_number
 from skewfix.cli.progress import TerminalProgress
 from skewfix.errors import InputError, RuntimeProblem, UsageProblem
 from skewfix.sequence import check_float_output, check_sequence_output, is_pattern, open_sink
@@ -32,8 +32,7 @@ def reskew_command(
                                         help="8 or 16 bits for PNG/TIFF output (default: as "
                                              "the input; deeper than 8 goes to 16); 16 (half) "
                                              "or 32 (float) for EXR."),
-    border: str = typer.Option("edge", "--border", metavar="FILL",
-                               help="Fill for pixels with no source: edge or black."),
+    border: str = border_option(help="Fill for pixels with no source: edge or black."),
     overscan: Optional[str] = typer.Option(None, "--overscan", metavar="1.1|96px|96,54px",
                                            help="INPUT is larger than the plate, centred on it: by a factor "
                                                 "(1.1) or a margin on each side in pixels; OUTPUT keeps INPUT's size."),
