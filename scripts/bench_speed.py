@@ -186,9 +186,9 @@ def bare_job(source: str, target: str, codec: str, interpolation: str, track: bo
     seed at half that size, pyramidal Lucas-Kanade forward and back (15 px window, 3 levels)
     from 288 points on a fixed grid (no corner search), then every plane warped strip by strip
     with cv2.warpAffine (a fixed shear per 32-row strip, as a whip pan's correction makes;
-    the chosen interpolation for luma, cubic through float32, bilinear for subsampled chroma,
-    as fix does) and encoded
-    with fix's settings. No corner search, fit or map, and no threads of its own: a lower bound
+    the chosen interpolation for luma, cubic through float32 buffers made once, bilinear for
+    subsampled chroma, as fix does) and encoded with fix's settings. No corner search, fit or
+    map, and no threads of its own: a lower bound
     on any fix built from these stages, timed like the floor (from after the imports).
     ``track=False`` leaves out the proxy and the tracking: only the resampling every
     correction must do, between decode and encode.
@@ -203,6 +203,7 @@ def bare_job(source: str, target: str, codec: str, interpolation: str, track: bo
     pts = np.float32(np.stack([gx.ravel(), gy.ravel()], 1)).reshape(-1, 1, 2)  # 288 points
     start, cpu = time.perf_counter(), time.process_time()
     frames, previous = 0, None
+    floats = {}  # float32 source and result of the cubic luma, made once (fix pools them)
     with av.open(source) as inp, av.open(target, "w") as out:
         video = inp.streams.video[0]
         video.thread_type = "SLICE"
@@ -229,7 +230,12 @@ def bare_job(source: str, target: str, codec: str, interpolation: str, track: bo
                 view = np.frombuffer(dst, src.dtype).reshape(dst.height, -1)[:, :dst.width]
                 # cubic is faster on float32 with the same result, as fix does it
                 wide = plane_flag == cv2.INTER_CUBIC
-                work, into = (np.float32(src), np.empty(src.shape, np.float32)) if wide else (src, view)
+                work, into = src, view
+                if wide:
+                    if src.shape not in floats:
+                        floats[src.shape] = (np.empty(src.shape, np.float32), np.empty(src.shape, np.float32))
+                    work, into = floats[src.shape]
+                    np.copyto(work, src)
                 strip = 32 * src.shape[0] // frame.height
                 for r0 in range(0, src.shape[0], strip):
                     rows = min(strip, src.shape[0] - r0)
